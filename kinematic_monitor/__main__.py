@@ -1,0 +1,7 @@
+"""``python -m kinematic_monitor`` runs the command line."""
+
+import sys
+
+from kinematic_monitor.cli import main
+
+sys.exit(main())

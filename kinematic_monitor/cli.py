@@ -1,0 +1,86 @@
+"""The ``kinematic-monitor`` command line.
+
+Each subcommand lives in its own module exposing ``HELP`` (one line),
+``add_arguments(parser)`` and ``run(args) -> int``; modules are imported only
+when their subcommand runs, so ``--help`` stays fast and needs no ROS install.
+
+Exit codes (DESIGN.md section 4): 0 ok, 1 a ``--fail-on`` condition was met,
+2 bad usage, bad parameters or unreadable input.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from kinematic_monitor import __version__
+
+EXIT_OK = 0
+EXIT_FAIL_ON = 1
+EXIT_USAGE = 2
+
+# subcommand name -> module path (module has HELP, add_arguments, run)
+SUBCOMMANDS: dict[str, str] = {
+    "demo": "kinematic_monitor.demo",
+    "simulate": "kinematic_monitor.sim.command",
+}
+
+
+class UsageError(Exception):
+    """Bad usage, bad parameters or unreadable input: exit code 2 with a message."""
+
+
+def _load(module_path: str):  # type: ignore[no-untyped-def]
+    return importlib.import_module(module_path)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The top-level parser with every available subcommand."""
+    parser = argparse.ArgumentParser(
+        prog="kinematic-monitor",
+        description=(
+            "Check an Ackermann vehicle's motion against the kinematic bicycle model: "
+            "detect tyre slip, localisation faults and calibration bias, live or from "
+            "recorded rosbag2 files. Advisory only, not a safety function."
+        ),
+    )
+    parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, module_path in SUBCOMMANDS.items():
+        try:
+            module = _load(module_path)
+        except ImportError as exc:  # an optional extra is missing
+            p = sub.add_parser(name, help=f"(unavailable: {exc})")
+            p.set_defaults(_module=None, _import_error=str(exc))
+            continue
+        p = sub.add_parser(name, help=module.HELP, description=module.HELP)
+        module.add_arguments(p)
+        p.set_defaults(_module=module)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the process exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "command", None):
+        parser.print_help()
+        return EXIT_USAGE
+    module = args._module
+    if module is None:
+        print(f"kinematic-monitor {args.command}: {args._import_error}", file=sys.stderr)
+        return EXIT_USAGE
+    try:
+        return int(module.run(args))
+    except UsageError as exc:
+        print(f"kinematic-monitor {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print(f"kinematic-monitor {args.command}: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

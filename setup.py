@@ -1,0 +1,61 @@
+"""ament_python set-up for kinematic_monitor (also installs with plain pip)."""
+from glob import glob
+
+from setuptools import find_packages, setup
+
+package_name = "kinematic_monitor"
+
+ROS_WHEELS = [
+    "ros-rclpy",
+    "ros-rmw-fastrtps-cpp",
+    "ros-std-msgs",
+    "ros-sensor-msgs",
+    "ros-nav-msgs",
+    "ros-geometry-msgs",
+    "ros-diagnostic-msgs",
+]
+
+setup(
+    name=package_name,
+    version="0.1.0",
+    packages=find_packages(exclude=["test", "test.*", "bench"]),
+    data_files=[
+        ("share/ament_index/resource_index/packages", ["resource/" + package_name]),
+        ("share/" + package_name, ["package.xml"]),
+        ("share/" + package_name + "/launch", glob("launch/*.launch.py")),
+        ("share/" + package_name + "/config", glob("config/*.yaml")),
+    ],
+    python_requires=">=3.10",
+    install_requires=["setuptools", "numpy", "filterpy", "transforms3d", "pyyaml"],
+    extras_require={
+        # rclpy and the standard message packages as PyPI wheels, for machines
+        # without a ROS install. On a ROS install these come from the distribution.
+        "ros": ROS_WHEELS,
+        # offline tools: bag reading/writing, report plots, progress bars
+        "tools": ["rosbags>=0.10", "matplotlib", "tqdm"],
+        "test": [
+            "pytest",
+            "pytest-cov",
+            "hypothesis",
+            "scipy",
+            "commonroad-vehicle-models",
+            "ruff",
+            "mypy",
+            "types-PyYAML",
+        ],
+    },
+    zip_safe=True,
+    maintainer="kinematic_monitor developers",
+    maintainer_email="kinematic-monitor@example.invalid",
+    description=(
+        "Watches whether an Ackermann vehicle still moves as the kinematic bicycle model "
+        "predicts, and says whether tyres, localisation or calibration are at fault."
+    ),
+    license="Apache-2.0",
+    entry_points={
+        "console_scripts": [
+            "kinematic-monitor = kinematic_monitor.cli:main",
+            "kinematic_monitor = kinematic_monitor.node:main",
+        ],
+    },
+)
