@@ -1,0 +1,1 @@
+"""Demo vehicle simulator: dynamic single-track model, tyres, driver and scenarios."""

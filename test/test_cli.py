@@ -1,0 +1,46 @@
+"""Command-line entry points: help works from the console script and ``python -m``."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+
+from kinematic_monitor import __version__, cli
+
+
+def test_python_m_help_lists_subcommands() -> None:
+    out = subprocess.run([sys.executable, "-m", "kinematic_monitor", "--help"],
+                         capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert "usage: kinematic-monitor" in out.stdout
+    for name in cli.SUBCOMMANDS:
+        assert name in out.stdout
+
+
+def test_console_script_help() -> None:
+    exe = shutil.which("kinematic-monitor", path=os.path.dirname(sys.executable))
+    assert exe is not None, "console script kinematic-monitor is not installed in the venv"
+    out = subprocess.run([exe, "--help"], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert "kinematic bicycle model" in out.stdout
+
+
+def test_version_flag(capsys) -> None:  # type: ignore[no-untyped-def]
+    try:
+        cli.main(["--version"])
+    except SystemExit as exc:
+        assert exc.code == 0
+    assert __version__ in capsys.readouterr().out
+
+
+def test_no_subcommand_is_usage_error(capsys) -> None:  # type: ignore[no-untyped-def]
+    assert cli.main([]) == cli.EXIT_USAGE
+
+
+def test_unknown_subcommand_exits_2() -> None:
+    out = subprocess.run([sys.executable, "-m", "kinematic_monitor", "no-such-command"],
+                         capture_output=True, text=True, timeout=120)
+    assert out.returncode == 2
+    assert "invalid choice" in out.stderr
