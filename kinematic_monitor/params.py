@@ -179,6 +179,11 @@ SPECS: tuple[ParamSpec, ...] = (
     _double("vehicle.max_road_wheel_angle", 0.7, "rad",
             "Largest plausible road-wheel angle; larger measurements are rejected.",
             0.0, 1.5, lo_inc=False, hi_inc=False),
+    _double("vehicle.understeer_gradient", 0.0, "rad/(m/s^2)",
+            "Steady-state understeer gradient K (SAE J670 / ISO 8855 sign: positive for "
+            "understeer); the kinematic prediction uses delta - K * a_y. 0 = pure kinematic. "
+            "Estimate it with `kinematic-monitor calibrate`.",
+            -0.05, 0.05),
     _double("vehicle.steering_ratio", 1.0, "-",
             "Steering-wheel angle per road-wheel angle; 1.0 when the steer joints report "
             "road-wheel angles, else the measured angle is divided by it.",

@@ -377,6 +377,10 @@ def vehicle_params(vehicle: Any) -> dict[str, float]:
             max_angle = math.ceil((math.atan(L / r) + 0.05) * 100.0) / 100.0
     if max_angle is not None:
         out["vehicle.max_road_wheel_angle"] = float(max_angle)
+    understeer = getattr(vehicle, "understeer_gradient", None)
+    if callable(understeer):
+        # as `kinematic-monitor calibrate` would estimate it from a steady-state drive
+        out["vehicle.understeer_gradient"] = round(float(understeer()), 6)
     return out
 
 

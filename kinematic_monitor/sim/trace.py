@@ -7,7 +7,6 @@ sample it and add their own noise and faults.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -22,7 +21,7 @@ WHEEL_NAMES = ("FL", "FR", "RL", "RR")
 
 @dataclass
 class TrueTrace:
-    """True vehicle state sampled every `dt` seconds from t=0 (simulated time) in REP 103 frames."""
+    """True vehicle state sampled every `dt` s from t=0 (simulated time), REP 103 frames."""
 
     dt: float  # [s] sample spacing (<= 0.002)
     t: np.ndarray  # [s] shape (N,)
@@ -113,8 +112,3 @@ class TrueTrace:
         """Index of the sample nearest to time `t` [s] (clipped to the trace)."""
         i = int(round((t - float(self.t[0])) / self.dt)) if len(self) else 0
         return min(max(i, 0), max(len(self) - 1, 0))
-
-
-def _check_dt(dt: float) -> None:
-    if not (math.isfinite(dt) and 0.0 < dt <= 0.002):
-        raise ValueError(f"TrueTrace dt={dt!r} s must be in (0, 0.002]")
