@@ -25,6 +25,7 @@ EXIT_USAGE = 2
 SUBCOMMANDS: dict[str, str] = {
     "demo": "kinematic_monitor.demo",
     "simulate": "kinematic_monitor.sim.command",
+    "node": "kinematic_monitor.node_command",
 }
 
 

@@ -369,7 +369,7 @@ def test_relocalization_declares_itself_in_covariance() -> None:
     assert np.allclose(var_x[t >= 3.0], cfg.odometry.position_std**2)
     x = np.array([r.position[0] for r in odo])
     assert np.allclose(x - 10.0 * t, np.where(t >= 3.0, 2.0, 0.0), atol=1e-9)
-    assert [iv.kind for iv in truth] == ["none"]
+    assert [iv.kind for iv in truth] == ["relocalization"]
     assert truth[0].start == 2.0 and truth[0].end == 4.0
     assert "relocalization" in str(truth[0].detail)
 

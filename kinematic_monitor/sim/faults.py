@@ -20,19 +20,7 @@ import numpy as np
 
 from kinematic_monitor.sim.sensors import TOPIC_KEYS, SensorSeries
 
-try:
-    from kinematic_monitor.sim.truth import TruthInterval
-except ImportError:  # pragma: no cover - until truth.py lands
-
-    @dataclass(frozen=True)
-    class TruthInterval:  # type: ignore[no-redef]
-        """What is truly wrong between start and end [s]."""
-
-        kind: str
-        start: float
-        end: float
-        detail: str = ""
-
+from kinematic_monitor.sim.truth import TruthInterval
 
 __all__ = [
     "FAULT_HELP",
@@ -115,7 +103,7 @@ class LocalizationJump(Fault):
         od.values["y"][m] += self.dy
         end = _truth_end(self.start, self.duration, series.duration)
         detail = f"position step dx={self.dx:g} m, dy={self.dy:g} m (map frame)"
-        return [TruthInterval(self.KIND, self.start, end, detail)]
+        return [TruthInterval(self.KIND, self.start, end, {"summary": detail})]
 
 
 @dataclass(frozen=True)
@@ -148,7 +136,7 @@ class HeadingDrift(Fault):
         v["yaw"][m] += angle
         end = _truth_end(self.start, self.duration, series.duration)
         detail = f"heading drift {self.rate:g} rad/s from the pose at onset"
-        return [TruthInterval(self.KIND, self.start, end, detail)]
+        return [TruthInterval(self.KIND, self.start, end, {"summary": detail})]
 
 
 @dataclass(frozen=True)
@@ -161,7 +149,7 @@ class Relocalization(Fault):
     """
 
     NAME: ClassVar[str] = "reloc"
-    KIND: ClassVar[str] = "none"
+    KIND: ClassVar[str] = "relocalization"
     start: float = 10.0
     dx: float = 1.5
     dy: float = 0.0
@@ -190,7 +178,7 @@ class Relocalization(Fault):
         # the window around the jump in which no localisation alarm is expected
         start = max(self.start - self.window, 0.0)
         end = min(self.start + self.window, series.duration)
-        return [TruthInterval(self.KIND, start, end, detail)]
+        return [TruthInterval(self.KIND, start, end, {"summary": detail})]
 
 
 @dataclass(frozen=True)
@@ -210,7 +198,7 @@ class SteeringOffset(Fault):
         js.values["steer_right"][m] += self.offset
         end = _truth_end(self.start, self.duration, series.duration)
         detail = f"steering offset {self.offset:g} rad on both road-wheel angles"
-        return [TruthInterval(self.KIND, self.start, end, detail)]
+        return [TruthInterval(self.KIND, self.start, end, {"summary": detail})]
 
 
 @dataclass(frozen=True)
@@ -240,7 +228,7 @@ class WheelRadiusError(Fault):
             js.values[f"wheel_omega_{j}"][m] *= scale
         end = _truth_end(self.start, self.duration, series.duration)
         detail = f"wheel speeds scaled by {scale:g} (radius error {100 * self.error:+g} %)"
-        return [TruthInterval(self.KIND, self.start, end, detail)]
+        return [TruthInterval(self.KIND, self.start, end, {"summary": detail})]
 
 
 @dataclass(frozen=True)
@@ -267,7 +255,7 @@ class TopicSilent(Fault):
         m = s.window(self.start, _end(self.start, self.duration))
         s.keep[m] = False
         end = _truth_end(self.start, self.duration, series.duration)
-        return [TruthInterval(self.KIND, self.start, end, f"no {self.topic} messages")]
+        return [TruthInterval(self.KIND, self.start, end, {"summary": f"no {self.topic} messages"})]
 
 
 FAULT_TYPES: dict[str, type[Fault]] = {

@@ -45,6 +45,9 @@ TRUTH_KINDS = (
     "calibration_bias",
     "input_stale",
 )
+# truth that is not a fault: a relocalisation the localisation declares (REP 105 lets the
+# map frame jump by design); the monitor should note it, never raise an event for it
+NOTE_KINDS = ("relocalization",)
 
 
 @dataclass
@@ -63,8 +66,10 @@ class TruthInterval:
     def __post_init__(self) -> None:
         if isinstance(self.detail, str):
             self.detail = {"summary": self.detail}
-        if self.kind not in TRUTH_KINDS:
-            raise ValueError(f"TruthInterval.kind={self.kind!r} must be one of {TRUTH_KINDS}")
+        if self.kind not in TRUTH_KINDS + NOTE_KINDS:
+            raise ValueError(
+                f"TruthInterval.kind={self.kind!r} must be one of {TRUTH_KINDS + NOTE_KINDS}"
+            )
         if not self.end >= self.start:
             raise ValueError(f"TruthInterval end={self.end!r} is before start={self.start!r}")
 

@@ -1,0 +1,640 @@
+"""The live rclpy node ``kinematic_monitor`` (thin adapter around the ROS-free core).
+
+Callbacks only turn a message into a sample (``convert``), push it through the
+header-stamp reorder buffer (``ordering``) and hand released samples to the ``Monitor``.
+Outputs (DESIGN.md section 3): ``/diagnostics`` (REP 107 levels, one status per check),
+``~/prediction`` (nav_msgs/Odometry), ``~/events`` (DiagnosticStatus at each event start
+and end), a JSON-lines event log flushed at each start/end, and one console line per event.
+
+Times are header stamps [s]; "now" for staleness is the node clock, so ``use_sim_time``
+is honoured. Units and frames follow REP 103 / REP 105.
+
+Executor: ``rclpy.experimental.EventsExecutor`` where it exists (much cheaper per message),
+otherwise ``SingleThreadedExecutor``; choose with ``executor=`` or the environment variable
+``KINEMATIC_MONITOR_EXECUTOR`` = ``auto`` | ``events`` | ``single``.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import signal
+import sys
+import time
+from collections import Counter, deque
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from types import FrameType
+from typing import TYPE_CHECKING, Any
+
+import rclpy
+from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
+from geometry_msgs.msg import PoseWithCovarianceStamped
+from nav_msgs.msg import Odometry
+from rcl_interfaces.msg import (
+    FloatingPointRange,
+    IntegerRange,
+    ParameterDescriptor,
+    ParameterType,
+    SetParametersResult,
+)
+from rclpy.node import Node
+from rclpy.parameter import Parameter
+from rclpy.qos import (
+    DurabilityPolicy,
+    HistoryPolicy,
+    QoSProfile,
+    ReliabilityPolicy,
+)
+from rclpy.task import Future
+from sensor_msgs.msg import Imu, JointState, NavSatFix
+
+from kinematic_monitor import convert, events, ordering, params
+from kinematic_monitor import ros_msgs as rm
+
+if TYPE_CHECKING:  # pragma: no cover - typing only
+    from kinematic_monitor.monitor import Monitor as _Monitor
+
+NODE_NAME = "kinematic_monitor"
+EXIT_OK = 0
+EXIT_BAD_PARAMS = 2
+EXECUTOR_ENV = "KINEMATIC_MONITOR_EXECUTOR"
+# parameters every rclpy node has; never reported as unknown
+_ROS_BUILTIN_PARAMS = ("use_sim_time", "start_type_description_service")
+_INT_LIMIT = 2**63 - 1
+_LATENCY_WINDOW = 4000  # samples kept for the latency percentiles
+_LEVEL_CHECK_PERIOD = 0.02  # [s] wall time between level-change checks without transitions
+_PREDICTION_PERIOD = 0.02  # [s] header-stamp time between ~/prediction messages
+
+
+@dataclass
+class NodeStatus:
+    """The node's own diagnostic status (same fields as the core's check statuses)."""
+
+    name: str
+    level: int
+    message: str
+    values: dict[str, str] = field(default_factory=dict)
+
+
+class StartupError(Exception):
+    """Start-up cannot continue (bad parameter); the message names the problem."""
+
+
+# --- parameter schema -> ROS descriptors ------------------------------------------------
+
+_ROS_TYPES = {
+    "double": ParameterType.PARAMETER_DOUBLE,
+    "integer": ParameterType.PARAMETER_INTEGER,
+    "bool": ParameterType.PARAMETER_BOOL,
+    "string": ParameterType.PARAMETER_STRING,
+    "string_array": ParameterType.PARAMETER_STRING_ARRAY,
+    "double_array": ParameterType.PARAMETER_DOUBLE_ARRAY,
+}
+_PARAM_TYPES = {
+    "double": Parameter.Type.DOUBLE,
+    "integer": Parameter.Type.INTEGER,
+    "bool": Parameter.Type.BOOL,
+    "string": Parameter.Type.STRING,
+    "string_array": Parameter.Type.STRING_ARRAY,
+    "double_array": Parameter.Type.DOUBLE_ARRAY,
+}
+
+
+def param_specs() -> list[params.ParamSpec]:
+    """The parameter schema (``params.SPECS``)."""
+    return list(params.SPECS)
+
+
+def descriptor_for(spec: params.ParamSpec) -> ParameterDescriptor:
+    """ParameterDescriptor from a ParamSpec: type, description, numeric range, read_only.
+
+    ROS ranges are closed intervals; an open bound such as (0, 20] is declared as [0, 20]
+    and the open end is enforced by ``params.validate``.
+    """
+    d = ParameterDescriptor()
+    d.name = spec.name
+    d.type = _ROS_TYPES[spec.type]
+    unit = "" if spec.unit == "-" else f" [{spec.unit}]"
+    d.description = f"{spec.description}{unit}"
+    d.additional_constraints = f"allowed: {spec.allowed_text()}"
+    d.read_only = not spec.runtime_changeable
+    lo = spec.min_value
+    hi = spec.max_value
+    if lo is not None or hi is not None:
+        if spec.type == "double":
+            d.floating_point_range = [FloatingPointRange(
+                from_value=float(lo) if lo is not None else -math.inf,
+                to_value=float(hi) if hi is not None else math.inf,
+                step=0.0,
+            )]
+        elif spec.type == "integer":
+            d.integer_range = [IntegerRange(
+                from_value=int(lo) if lo is not None else -_INT_LIMIT,
+                to_value=int(hi) if hi is not None else _INT_LIMIT,
+                step=1,
+            )]
+    return d
+
+
+def _coerce(spec_type: str, value: Any) -> Any:
+    """Accept YAML integers where a double is expected (``wheelbase: 3``)."""
+    if spec_type == "double" and isinstance(value, int) and not isinstance(value, bool):
+        return float(value)
+    if spec_type == "double_array" and isinstance(value, (list, tuple)):
+        return [float(v) if isinstance(v, int) and not isinstance(v, bool) else v
+                for v in value]
+    return value
+
+
+def _cfg(config: Any, dotted: str, default: Any = None) -> Any:
+    """Value at a dotted path of the validated config (attributes or mapping keys)."""
+    obj = config
+    for part in dotted.split("."):
+        if isinstance(obj, dict):
+            if part not in obj:
+                return default
+            obj = obj[part]
+        elif hasattr(obj, part):
+            obj = getattr(obj, part)
+        else:
+            return default
+    return obj
+
+
+def make_qos(kind: str) -> QoSProfile:
+    """Input QoS: 'sensor_data' = best effort (REP 2003 sensor data), 'reliable' = reliable.
+
+    Depth 100 so a 1 kHz JointState stream survives short executor stalls.
+    """
+    rel = ReliabilityPolicy.RELIABLE if kind == "reliable" else ReliabilityPolicy.BEST_EFFORT
+    return QoSProfile(history=HistoryPolicy.KEEP_LAST, depth=100, reliability=rel,
+                      durability=DurabilityPolicy.VOLATILE)
+
+
+def _percentile(sorted_vals: Sequence[float], q: float) -> float:
+    if not sorted_vals:
+        return math.nan
+    k = min(len(sorted_vals) - 1, max(0, int(math.ceil(q * len(sorted_vals))) - 1))
+    return float(sorted_vals[k])
+
+
+class KinematicMonitorNode(Node):
+    """rclpy node: declares and validates parameters, wires inputs to the core.
+
+    Raises ``StartupError`` from the constructor on a bad parameter.
+    """
+
+    monitor: _Monitor
+
+    def __init__(self, *, context: Any = None, console: Callable[[str], None] | None = None
+                 ) -> None:
+        kwargs: dict[str, Any] = {"allow_undeclared_parameters": False,
+                                  "automatically_declare_parameters_from_overrides": False}
+        if context is not None:
+            kwargs["context"] = context
+        super().__init__(NODE_NAME, **kwargs)
+        self._console = console or (lambda line: print(line, flush=True))
+        self._specs = {s.name: s for s in param_specs()}
+        self._values, self.config = self._declare_and_validate()
+        self.counters: Counter[str] = Counter()
+        # wall time - header stamp [s], at reception and when processed (after reordering)
+        self._rx_latency: deque[float] = deque(maxlen=_LATENCY_WINDOW)
+        self._latency: deque[float] = deque(maxlen=_LATENCY_WINDOW)
+        self._last_levels: tuple[Any, ...] | None = None
+        self._last_level_check = 0.0
+        self._last_prediction_stamp = -math.inf
+        self._last_stamp = math.nan
+        self._t0 = math.nan
+        self._closed = False
+        self._build_core()
+        self._create_io()
+        self.add_on_set_parameters_callback(self._on_set_parameters)
+        self._report_parameters()
+
+    # --- parameters -------------------------------------------------------------------
+    def _overrides(self) -> dict[str, Any]:
+        raw = getattr(self, "_parameter_overrides", None) or {}
+        return {name: p.value for name, p in raw.items()}
+
+    def _declare_and_validate(self) -> tuple[dict[str, Any], params.MonitorConfig]:
+        """Validate file values + defaults, then declare every parameter with them.
+
+        Validation comes first so a bad value is reported in the schema's words (name,
+        value, allowed range) rather than as an rclpy descriptor exception.
+        """
+        overrides = self._overrides()
+        values: dict[str, Any] = {}
+        for name, value in overrides.items():
+            spec = self._specs.get(name)
+            if spec is not None:
+                values[name] = _coerce(spec.type, value)
+            elif params.is_ros_reserved(name):
+                continue
+            else:
+                values[name] = value  # validate() names unknown parameters
+        config = self._validated(values)  # raises StartupError before anything is declared
+        checked = {k: list(v) if isinstance(v, tuple) else v for k, v in config.values.items()}
+        for name, spec in self._specs.items():
+            try:
+                self.declare_parameter(name, checked[name], descriptor_for(spec),
+                                       ignore_override=True)
+            except Exception as exc:  # rclpy type/range exceptions
+                raise StartupError(
+                    f"parameter '{name}': value {checked.get(name)!r} rejected by ROS: "
+                    f"{exc}") from exc
+        return checked, config
+
+    def _validated(self, values: dict[str, Any]) -> params.MonitorConfig:
+        try:
+            return params.validate(values)
+        except params.ParamError as exc:
+            raise StartupError(str(exc)) from exc
+
+    def _on_set_parameters(self, changes: list[Parameter]) -> SetParametersResult:
+        """Validate runtime changes exactly as at start-up; reject with the reason."""
+        try:
+            merged = dict(self._values)
+            for p in changes:
+                if p.name in _ROS_BUILTIN_PARAMS:
+                    continue
+                spec = self._specs.get(p.name)
+                if spec is None:
+                    return SetParametersResult(successful=False,
+                                               reason=f"unknown parameter {p.name!r}")
+                if not getattr(spec, "runtime_changeable", False):
+                    return SetParametersResult(
+                        successful=False,
+                        reason=f"parameter {p.name} cannot change at run time (restart)")
+                merged[p.name] = _coerce(spec.type, p.value)
+            try:
+                config = params.validate(merged)
+            except params.ParamError as exc:
+                return SetParametersResult(successful=False, reason=str(exc))
+            self._apply_config(config)
+            self._values = merged
+            self.config = config
+            self.get_logger().info(
+                "parameters changed: "
+                + ", ".join(f"{p.name}={p.value!r}" for p in changes))
+            return SetParametersResult(successful=True)
+        except Exception as exc:  # never let an exception escape into rclpy
+            self.counters["callback_errors"] += 1
+            return SetParametersResult(successful=False, reason=f"internal error: {exc}")
+
+    def _apply_config(self, config: params.MonitorConfig) -> None:
+        """Hand new thresholds to the core.
+
+        Uses ``Monitor.reconfigure(config)`` when the core offers it; otherwise open events
+        are closed at the last stamp and the monitor restarts with the new configuration
+        (its filter re-initialises from the next samples).
+        """
+        fn = getattr(self.monitor, "reconfigure", None)
+        if callable(fn):
+            fn(config)
+            return
+        from kinematic_monitor.monitor import Monitor
+
+        if math.isfinite(self._last_stamp):
+            self.monitor.flush(self._last_stamp)
+            self._handle_transitions()
+        self.monitor = Monitor(config)
+        self._last_levels = None
+        self.get_logger().info("monitor restarted with the new thresholds")
+
+    def _report_parameters(self) -> None:
+        lines = [f"  {name} = {self._values.get(name, '<unset>')!r}" for name in self._specs]
+        self.get_logger().info("parameters:\n" + "\n".join(lines))
+
+    # --- core -------------------------------------------------------------------------
+    def _build_core(self) -> None:
+        cfg = self.config
+        # the core (pulls in scipy): imported only once the parameters are known good
+        from kinematic_monitor.monitor import Monitor
+
+        self.monitor = Monitor(cfg)
+        lag = cfg.inputs.reorder_window
+        self.buffer = ordering.ReorderBuffer(lag, reset_threshold=max(1.0, 2.0 * lag + 0.5))
+        js = cfg.inputs.joint_states
+        self.joint_map = convert.JointMap(js.steering_joints, js.front_wheel_joints,
+                                          js.rear_wheel_joints)
+        self._max_steer = cfg.vehicle.max_road_wheel_angle * cfg.vehicle.steering_ratio
+        path = cfg.output.events_log
+        self.event_log: events.EventLogWriter | None = None
+        if path:
+            try:
+                self.event_log = events.EventLogWriter(path)
+            except OSError as exc:
+                raise StartupError(
+                    f"parameter 'output.events_log': cannot open {path!r}: {exc.strerror}"
+                ) from exc
+            self.get_logger().info(f"event log: {os.path.abspath(path)}")
+
+    # --- subscriptions / publishers / timers --------------------------------------------
+    def _create_io(self) -> None:
+        cfg = self.config
+        qos = make_qos(cfg.inputs.qos)
+        self._subs: list[Any] = []
+
+        def sub(msg_type: Any, topic: str, name: str, fn: Callable[[Any], Any]) -> None:
+            if not topic:
+                self.get_logger().info(f"input {name}: disabled (empty topic)")
+                return
+            self._subs.append(self.create_subscription(
+                msg_type, topic, self._guarded(name, fn), qos))
+            self.get_logger().info(
+                f"input {name}: {topic} ({msg_type.__name__}, {cfg.inputs.qos})")
+
+        sub(JointState, cfg.inputs.joint_states.topic, "joint_states",
+            lambda m: convert.chassis_from_msg(m, self.joint_map, self._max_steer))
+        loc = cfg.inputs.localization
+        if loc.type == "pose_with_covariance":
+            sub(PoseWithCovarianceStamped, loc.topic, "localization",
+                convert.localization_from_pose_msg)
+        else:
+            sub(Odometry, loc.topic, "localization", convert.localization_from_odometry_msg)
+        if loc.reset_topic:
+            # any message on the reset topic declares a deliberate relocalisation (REP 105:
+            # map may jump); the message type is taken to be a stamped pose, as /initialpose
+            self._subs.append(self.create_subscription(
+                PoseWithCovarianceStamped, loc.reset_topic,
+                self._guarded("localization_reset", self._on_reset), 10))
+        sub(Imu, cfg.inputs.imu.topic, "imu", convert.imu_from_msg)
+        sub(NavSatFix, cfg.inputs.gnss.topic, "gnss", convert.gnss_from_msg)
+
+        self.pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
+        self.pub_prediction = self.create_publisher(Odometry, "~/prediction", 10)
+        self.pub_events = self.create_publisher(DiagnosticStatus, "~/events", 50)
+        period = cfg.output.diagnostics_period
+        self.prediction_frame = cfg.output.prediction_frame
+        self._diag_timer = self.create_timer(period, self._guarded_timer(
+            "diagnostics", self._on_diag_timer))
+        self._tick_timer = self.create_timer(0.1, self._guarded_timer(
+            "tick", self._on_tick))
+
+    def _guarded(self, name: str, convert_fn: Callable[[Any], Any]) -> Callable[[Any], None]:
+        def callback(msg: Any) -> None:
+            try:
+                self._ingest(name, convert_fn(msg))
+            except Exception as exc:  # no exception ever escapes a callback
+                self.counters["callback_errors"] += 1
+                self.get_logger().error(f"input {name}: {type(exc).__name__}: {exc}",
+                                        throttle_duration_sec=5.0)
+        return callback
+
+    def _guarded_timer(self, name: str, fn: Callable[[], None]) -> Callable[[], None]:
+        def callback() -> None:
+            try:
+                fn()
+            except Exception as exc:
+                self.counters["callback_errors"] += 1
+                self.get_logger().error(f"timer {name}: {type(exc).__name__}: {exc}",
+                                        throttle_duration_sec=5.0)
+        return callback
+
+    def now_sec(self) -> float:
+        """Node clock [s] (simulated time under use_sim_time)."""
+        return self.get_clock().now().nanoseconds * 1e-9
+
+    # --- data path --------------------------------------------------------------------
+    def _ingest(self, name: str, result: Any) -> None:
+        if isinstance(result, convert.Rejected):
+            self.counters[f"rejected.{name}"] += 1
+            self.get_logger().warning(f"input {name}: rejected: {result.reason}",
+                                      throttle_duration_sec=5.0)
+            return
+        if result is None:
+            return
+        self.counters[f"received.{name}"] += 1
+        self._rx_latency.append(time.time() - result.stamp)
+        self._process_released(self.buffer.push(result))
+
+    def _process_released(self, released: list[Any]) -> None:
+        """Feed released samples (and TimeReset markers) to the monitor in stamp order."""
+        if not released:
+            return
+        wall = time.time()
+        seen = False
+        for item in released:
+            if isinstance(item, ordering.TimeReset):
+                self.counters["time_resets"] += 1
+                self.get_logger().warning(
+                    f"header stamps jumped back from {item.previous:.3f} s to "
+                    f"{item.stamp:.3f} s: monitor reset")
+                self.monitor.process(item)
+                self._last_stamp = math.nan
+                self._last_prediction_stamp = -math.inf
+                continue
+            self.monitor.process(item)
+            stamp = float(item.stamp)
+            self._latency.append(wall - stamp)
+            self._last_stamp = stamp
+            if math.isnan(self._t0):
+                self._t0 = stamp
+            seen = True
+        if seen:
+            self._after_processing()
+
+    def _on_reset(self, msg: Any) -> None:
+        stamp = rm.stamp_to_sec(msg.header.stamp)
+        fn = getattr(self.monitor, "declare_relocalization", None)
+        if callable(fn):
+            fn(stamp)
+        self.counters["localization_resets"] += 1
+        return None
+
+    def _after_processing(self) -> None:
+        had_events = self._handle_transitions()
+        if self._last_stamp - self._last_prediction_stamp >= _PREDICTION_PERIOD:
+            self._publish_prediction()
+        wall = time.monotonic()
+        if had_events or wall - self._last_level_check >= _LEVEL_CHECK_PERIOD:
+            self._last_level_check = wall
+            self._maybe_publish_on_level_change()
+
+    def _handle_transitions(self) -> bool:
+        transitions = list(self.monitor.pop_transitions() or ())
+        for rec in transitions:
+            self._emit_event(rec)
+        return bool(transitions)
+
+    def _emit_event(self, rec: Any) -> None:
+        if self.event_log is not None:
+            try:
+                self.event_log.write(rec)
+            except Exception as exc:
+                self.counters["event_log_errors"] += 1
+                self.get_logger().error(f"event log: {exc}", throttle_duration_sec=5.0)
+        try:
+            self.pub_events.publish(rm.event_status_msg(rec))
+        except Exception as exc:  # context may be gone during shutdown
+            self.counters["publish_errors"] += 1
+            self.get_logger().debug(f"~/events: {exc}")
+        t0 = self._t0 if math.isfinite(self._t0) else 0.0
+        self._console(rm.event_console_line(rec, t0))
+        self.counters["events"] += 1
+
+    def _publish_prediction(self) -> None:
+        pred = self.monitor.prediction()
+        if pred is None:
+            return
+        stamp = float(getattr(pred, "stamp", self._last_stamp))
+        self._last_prediction_stamp = stamp
+        self.pub_prediction.publish(
+            rm.prediction_odometry(pred, rm.sec_to_stamp(stamp), self.prediction_frame))
+
+    # --- diagnostics ------------------------------------------------------------------
+    def statuses(self) -> list[Any]:
+        """Monitor statuses plus the node's own input/latency status."""
+        out: list[Any] = list(self.monitor.statuses())
+        out.append(self._node_status())
+        return out
+
+    def _node_status(self) -> NodeStatus:
+        lat = sorted(self._latency)
+        rx = sorted(self._rx_latency)
+        values: dict[str, Any] = {
+            "receive_latency_p50 [ms]": 1e3 * _percentile(rx, 0.5),
+            "receive_latency_p99 [ms]": 1e3 * _percentile(rx, 0.99),
+            "latency_p50 [ms]": 1e3 * _percentile(lat, 0.5),
+            "latency_p99 [ms]": 1e3 * _percentile(lat, 0.99),
+            "reorder_window [s]": self.buffer.lag,
+            "late_dropped": self.buffer.late_dropped,
+            "time_resets": self.buffer.resets,
+        }
+        mon_counters = getattr(self.monitor, "counters", None)
+        if isinstance(mon_counters, dict):
+            values.update({f"core.{k}": v for k, v in sorted(mon_counters.items())})
+        values.update(sorted(self.counters.items()))
+        errors = self.counters.get("callback_errors", 0)
+        return NodeStatus("kinematic_monitor: node", 1 if errors else 0,
+                           f"{errors} callback errors" if errors else "running",
+                           {k: rm.format_value(v) for k, v in values.items()})
+
+    def publish_diagnostics(self) -> None:
+        """Publish /diagnostics now (one status per check)."""
+        sts = self.statuses()
+        self._last_levels = tuple(rm.status_level(s) for s in sts)
+        self.pub_diag.publish(rm.diagnostic_array(sts, self.get_clock().now().to_msg()))
+
+    def _levels(self) -> tuple[Any, ...]:
+        return tuple(rm.status_level(s) for s in self.monitor.statuses())
+
+    def _maybe_publish_on_level_change(self) -> None:
+        levels = self._levels()
+        last = self._last_levels[:-1] if self._last_levels is not None else None
+        if levels != last:
+            self.publish_diagnostics()
+
+    def _on_diag_timer(self) -> None:
+        self.publish_diagnostics()
+
+    def _on_tick(self) -> None:
+        self.monitor.check_stale(self.now_sec())
+        self._handle_transitions()
+        self._maybe_publish_on_level_change()
+
+    # --- shutdown ---------------------------------------------------------------------
+    def close(self) -> None:
+        """Close open events (written to the log and ~/events), publish final diagnostics."""
+        if self._closed:
+            return
+        self._closed = True
+        try:
+            self._process_released(self.buffer.flush())
+            end = self._last_stamp if math.isfinite(self._last_stamp) else self.now_sec()
+            self.monitor.flush(end)
+            self._handle_transitions()
+            self.publish_diagnostics()
+        except Exception as exc:
+            self.get_logger().error(f"shutdown: {type(exc).__name__}: {exc}")
+        finally:
+            if self.event_log is not None:
+                try:
+                    self.event_log.close()
+                except Exception as exc:
+                    self.get_logger().error(f"closing event log: {exc}")
+
+
+# --- executor and process entry point ------------------------------------------------------
+
+def make_executor(kind: str | None = None, context: Any = None) -> Any:
+    """EventsExecutor when available (``auto``/``events``), else SingleThreadedExecutor."""
+    kind = (kind or os.environ.get(EXECUTOR_ENV, "auto") or "auto").lower()
+    if kind not in ("auto", "events", "single"):
+        raise StartupError(f"{EXECUTOR_ENV}={kind!r}: expected auto, events or single")
+    if kind in ("auto", "events"):
+        try:
+            from rclpy.experimental import EventsExecutor  # rclpy >= Jazzy-era wheels
+        except ImportError:
+            if kind == "events":
+                raise StartupError("EventsExecutor is not available in this rclpy") from None
+        else:
+            return EventsExecutor(context=context) if context is not None else EventsExecutor()
+    from rclpy.executors import SingleThreadedExecutor
+    return SingleThreadedExecutor(context=context)
+
+
+def _init_rclpy(args: list[str] | None) -> None:
+    try:
+        from rclpy.signals import SignalHandlerOptions
+        rclpy.init(args=args, signal_handler_options=SignalHandlerOptions.NO)
+    except (ImportError, TypeError):  # very old rclpy: keep its handlers
+        rclpy.init(args=args)
+
+
+def main(args: list[str] | None = None, executor: str | None = None) -> int:
+    """Run the node until SIGINT/SIGTERM; returns the exit code (2: bad parameters)."""
+    argv = list(sys.argv if args is None else args)
+    _init_rclpy(argv)
+    stop = {"flag": False}
+    done: Future = Future()
+
+    def on_signal(signum: int, frame: FrameType | None) -> None:
+        stop["flag"] = True
+        if not done.done():
+            done.set_result(signum)
+
+    node: KinematicMonitorNode | None = None
+    ex: Any = None
+    code = EXIT_OK
+    try:
+        try:
+            node = KinematicMonitorNode()
+            ex = make_executor(executor)
+        except StartupError as exc:
+            msg = f"bad parameters: {exc}"
+            try:  # to the console and the ROS log file, like every other node message
+                rclpy.logging.get_logger(NODE_NAME).fatal(msg)
+            except Exception:
+                print(f"[{NODE_NAME}] {msg}", file=sys.stderr, flush=True)
+            return EXIT_BAD_PARAMS
+        previous = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
+        ex.add_node(node)
+        node.get_logger().info(f"running ({type(ex).__name__})")
+        try:
+            while not stop["flag"] and rclpy.ok():
+                # always with a timeout (EventsExecutor trap, see PERF_NOTES)
+                ex.spin_until_future_complete(done, timeout_sec=0.25)
+        finally:
+            node.close()
+            for s, h in previous.items():
+                signal.signal(s, h)
+            node.get_logger().info("stopped")
+    finally:
+        if ex is not None:
+            try:
+                ex.shutdown(timeout_sec=0.5)
+            except TypeError:
+                ex.shutdown()
+            except Exception:
+                pass
+        if node is not None:
+            node.destroy_node()
+        if rclpy.ok():
+            rclpy.shutdown()
+    return code
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
