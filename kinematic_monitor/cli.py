@@ -26,6 +26,7 @@ SUBCOMMANDS: dict[str, str] = {
     "demo": "kinematic_monitor.demo",
     "simulate": "kinematic_monitor.sim.command",
     "node": "kinematic_monitor.node_command",
+    "calibrate": "kinematic_monitor.calibrate",
 }
 
 
