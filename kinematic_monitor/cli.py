@@ -24,6 +24,7 @@ EXIT_USAGE = 2
 # subcommand name -> module path (module has HELP, add_arguments, run)
 SUBCOMMANDS: dict[str, str] = {
     "demo": "kinematic_monitor.demo",
+    "replay": "kinematic_monitor.replay",
     "simulate": "kinematic_monitor.sim.command",
     "node": "kinematic_monitor.node_command",
     "calibrate": "kinematic_monitor.calibrate",

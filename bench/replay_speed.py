@@ -1,0 +1,166 @@
+"""Replay speed, measured side by side in one run on a simulated 10-minute drive.
+
+Prints: bare rosbags read + deserialise of every message; our bag reader alone
+(``bag.iter_samples``); the whole ``kinematic-monitor replay --no-report`` command as a
+subprocess (start-up included); the report generation alone; and the ratios against the
+targets (replay <= 2x the bare read, >= 100x real time, report <= 5 s).
+
+Usage: python bench/replay_speed.py [--bag DIR] [--duration S] [--storage sqlite3|mcap]
+Without --bag a drive is simulated into a temporary folder (JointState 100 Hz, Imu 200 Hz,
+Odometry 50 Hz, NavSatFix 10 Hz: about 216 000 messages for 600 s).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+RUN_REPLAY = (
+    "import sys\n"
+    "from kinematic_monitor import cli\n"
+    "cli.SUBCOMMANDS.setdefault('replay', 'kinematic_monitor.replay')\n"
+    "sys.exit(cli.main(sys.argv[1:]))\n"
+)
+
+
+def simulate(out: Path, duration: float, storage: str) -> Path:
+    from kinematic_monitor.sim.bagout import write_simulation
+    from kinematic_monitor.sim.scenarios import SCENARIOS, simulate
+
+    trace = simulate(SCENARIOS["mixed_loop"](duration=duration), duration=duration, seed=11)
+    write_simulation(out, trace, seed=11, storage=storage)
+    return out
+
+
+def bare_read(bag: Path) -> tuple[float, float, int]:
+    """rosbags Reader + typestore deserialise of every message: (wall, cpu, count)."""
+    from rosbags.rosbag2 import Reader
+    from rosbags.typesys import Stores, get_typestore
+
+    store = get_typestore(Stores.ROS2_JAZZY)
+    t, c = time.perf_counter(), time.process_time()
+    n = 0
+    with Reader(bag) as reader:
+        for conn, _ts, raw in reader.messages():
+            store.deserialize_cdr(raw, conn.msgtype)
+            n += 1
+    return time.perf_counter() - t, time.process_time() - c, n
+
+
+def our_reader(bag: Path, params: Path) -> tuple[float, float, int]:
+    """kinematic_monitor.bag: read, decode the used fields, convert, order by stamp."""
+    from kinematic_monitor.bag import open_bag
+    from kinematic_monitor.params import load_config
+
+    cfg = load_config(params)
+    t, c = time.perf_counter(), time.process_time()
+    n = 0
+    with open_bag(bag, cfg) as src:
+        for _ in src.iter_samples():
+            n += 1
+    return time.perf_counter() - t, time.process_time() - c, n
+
+
+def core_only(bag: Path, params: Path) -> tuple[float, float]:
+    """Bag reader + Monitor.process on every sample, in-process, no outputs at all."""
+    from kinematic_monitor.bag import open_bag
+    from kinematic_monitor.monitor import Monitor
+    from kinematic_monitor.params import load_config
+
+    cfg = load_config(params)
+    mon = Monitor(cfg)
+    t, c = time.perf_counter(), time.process_time()
+    last = float("nan")
+    with open_bag(bag, cfg) as src:
+        for s in src.iter_samples():
+            mon.process(s)
+            last = s.stamp
+    mon.flush(last)
+    return time.perf_counter() - t, time.process_time() - c
+
+
+def replay_command(bag: Path, params: Path, out: Path) -> tuple[float, float, str]:
+    """The whole command in a fresh interpreter: (wall, child cpu, summary line)."""
+    env = {**os.environ, "CI": "true"}
+    before = os.times()
+    t = time.perf_counter()
+    r = subprocess.run([sys.executable, "-c", RUN_REPLAY, "replay", str(bag), "--params",
+                        str(params), "--out", str(out), "--no-report", "--json-summary"],
+                       capture_output=True, text=True, env=env, timeout=3600)
+    wall = time.perf_counter() - t
+    after = os.times()
+    if r.returncode not in (0, 1):
+        raise SystemExit(f"replay failed ({r.returncode}): {r.stderr[-2000:]}")
+    cpu = (after.children_user - before.children_user) + (
+        after.children_system - before.children_system)
+    return wall, cpu, r.stdout.strip().splitlines()[-1]
+
+
+def report_time(out: Path, bag: Path) -> tuple[float, float, int]:
+    """Report rendering from the replay's outputs (in-process, matplotlib imported first)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot  # noqa: F401 - import cost is not the report's
+
+    from kinematic_monitor.report import ReportData, render_report
+    from kinematic_monitor.timeseries import read_timeseries
+
+    t, c = time.perf_counter(), time.process_time()
+    series = read_timeseries(out / "timeseries.csv")
+    events = json.loads((out / "events.json").read_text())["events"]
+    html = render_report(ReportData(source=str(bag), series=series, events=events))
+    return time.perf_counter() - t, time.process_time() - c, len(html)
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--bag", type=Path, help="existing simulated bag folder (with params.yaml)")
+    ap.add_argument("--params", type=Path, help="parameter file (default: BAG/params.yaml)")
+    ap.add_argument("--duration", type=float, default=600.0, help="simulated drive [s]")
+    ap.add_argument("--storage", choices=("sqlite3", "mcap"), default="sqlite3")
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory(prefix="km_bench_") as tmp:
+        tmpdir = Path(tmp)
+        bag = args.bag
+        if bag is None:
+            t = time.perf_counter()
+            bag = simulate(tmpdir / "drive", args.duration, args.storage)
+            print(f"simulated {args.duration:.0f} s drive into {bag} "
+                  f"in {time.perf_counter() - t:.1f} s")
+        params = args.params or bag / "params.yaml"
+
+        bare_w, bare_c, n = bare_read(bag)
+        ours_w, ours_c, ns = our_reader(bag, params)
+        core_w, core_c = core_only(bag, params)
+        rep_w, rep_c, summary_line = replay_command(bag, params, tmpdir / "out")
+        rpt_w, rpt_c, size = report_time(tmpdir / "out", bag)
+        summary = json.loads(summary_line)
+        duration = float(summary["duration_s"])
+
+    print(f"messages: {n}, samples: {ns}, drive: {duration:.1f} s, "
+          f"events: {summary['events']['total']}")
+    print(f"{'what':44s} {'wall s':>8s} {'cpu s':>8s}")
+    print(f"{'bare rosbags read + deserialise':44s} {bare_w:8.2f} {bare_c:8.2f}")
+    print(f"{'bag.iter_samples (read, decode, order)':44s} {ours_w:8.2f} {ours_c:8.2f}")
+    print(f"{'bag + Monitor.process only (in-process)':44s} {core_w:8.2f} {core_c:8.2f}")
+    print(f"{'replay --no-report (subprocess, start-up)':44s} {rep_w:8.2f} {rep_c:8.2f}")
+    print(f"{f'report rendering (html {size / 1024:.0f} kB)':44s} {rpt_w:8.2f} "
+          f"{rpt_c:8.2f}")
+    ratio_w, ratio_c = rep_w / bare_w, rep_c / max(bare_c, 1e-9)
+    print(f"replay / bare read: {ratio_w:.2f}x wall, {ratio_c:.2f}x cpu (target <= 2x)")
+    print(f"replay / core alone: {rep_w / core_w:.2f}x wall (outputs, time series, start-up)")
+    print(f"replay speed: {duration / rep_w:.0f}x real time wall, "
+          f"{duration / max(rep_c, 1e-9):.0f}x cpu (target >= 100x)")
+    print(f"report: {rpt_w:.2f} s wall, {rpt_c:.2f} s cpu (target <= 5 s)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

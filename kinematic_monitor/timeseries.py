@@ -1,0 +1,179 @@
+"""The per-update time series of a replay, streamed to CSV with peak-keeping decimation.
+
+One row per decimation window (``min_interval`` seconds of header-stamp time): pose and
+speed are the latest in the window, each residual channel keeps the value with the largest
+magnitude in the window and each check level the highest level, so peaks and short alarms
+survive decimation. Rows are written as they complete: memory stays flat whatever the
+length of the drive. Units: time [s] (header stamp), x, y [m] in the localisation frame
+(REP 105 ``map``/``odom``), yaw and steering [rad], speed [m/s], accel [m/s²]; levels are
+REP 107 (0 OK, 1 WARN, 2 ERROR, 3 STALE).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import IO
+
+import numpy as np
+
+BASE_COLUMNS = ("time", "x", "y", "yaw", "speed", "steering", "accel")
+RESIDUAL_PREFIX = "res:"
+LEVEL_PREFIX = "level:"
+LEVEL_MAX = "level_max"
+DEFAULT_MIN_INTERVAL = 0.1  # [s] 10 rows per second: common practice, no source
+
+
+def _fmt(value: float) -> str:
+    if not math.isfinite(value):
+        return "nan"
+    return f"{value:.6g}"
+
+
+class TimeseriesWriter:
+    """Streams decimated rows to an open text file as CSV.
+
+    ``channels``: residual channel names (columns ``res:<name>``); ``checks``: check names
+    (columns ``level:<name>``). Values for unknown names are ignored and counted in
+    ``ignored``.
+    """
+
+    def __init__(self, fh: IO[str], channels: Sequence[str], checks: Sequence[str],
+                 min_interval: float = DEFAULT_MIN_INTERVAL) -> None:
+        if not (math.isfinite(min_interval) and min_interval >= 0.0):
+            raise ValueError(f"min_interval={min_interval!r} s must be finite and >= 0")
+        self.channels = list(dict.fromkeys(channels))
+        self.checks = list(dict.fromkeys(checks))
+        self.min_interval = min_interval
+        self._chan_index = {c: i for i, c in enumerate(self.channels)}
+        self._check_index = {c: i for i, c in enumerate(self.checks)}
+        self._writer = csv.writer(fh, lineterminator="\n")
+        self._writer.writerow(
+            list(BASE_COLUMNS)
+            + [RESIDUAL_PREFIX + c for c in self.channels]
+            + [LEVEL_PREFIX + c for c in self.checks]
+            + [LEVEL_MAX]
+        )
+        self._fh = fh
+        self.rows = 0
+        self.ignored = 0
+        self._open = False
+        self._window_start = -math.inf
+        self._reset_window()
+
+    def _reset_window(self) -> None:
+        self._base = [math.nan] * len(BASE_COLUMNS)
+        self._res = [math.nan] * len(self.channels)
+        self._lev = [0] * len(self.checks)
+        self._accel = math.nan
+
+    def add(self, time: float, x: float = math.nan, y: float = math.nan,
+            yaw: float = math.nan, speed: float = math.nan, steering: float = math.nan,
+            accel: float = math.nan, residuals: Mapping[str, float] | None = None,
+            levels: Mapping[str, int] | None = None) -> None:
+        """Add one update at header stamp ``time`` [s]; a row is written per window.
+
+        A non-finite ``time`` is ignored and counted in ``ignored``.
+        """
+        if not math.isfinite(time):
+            self.ignored += 1
+            return
+        if self._open and time - self._window_start >= self.min_interval - 1e-6:
+            self._flush_row()
+        if not self._open:
+            self._open = True
+            self._window_start = time
+        b = self._base
+        b[0] = time
+        for i, v in ((1, x), (2, y), (3, yaw), (4, speed), (5, steering)):
+            if math.isfinite(v):
+                b[i] = v
+        if math.isfinite(accel) and not (abs(accel) <= abs(self._accel)):
+            self._accel = accel
+        if residuals:
+            for name, value in residuals.items():
+                j = self._chan_index.get(name)
+                if j is None:
+                    self.ignored += 1
+                    continue
+                if math.isfinite(value) and not (abs(value) <= abs(self._res[j])):
+                    self._res[j] = value
+        if levels:
+            for name, level in levels.items():
+                k = self._check_index.get(name)
+                if k is None:
+                    self.ignored += 1
+                    continue
+                if level > self._lev[k]:
+                    self._lev[k] = int(level)
+
+    def _flush_row(self) -> None:
+        b = self._base
+        b[6] = self._accel
+        row = [f"{b[0]:.6f}"] + [_fmt(v) for v in b[1:]]
+        row += [_fmt(v) for v in self._res]
+        row += [str(v) for v in self._lev]
+        row.append(str(max(self._lev, default=0)))
+        self._writer.writerow(row)
+        self.rows += 1
+        self._open = False
+        self._reset_window()
+
+    def close(self) -> None:
+        """Write the last (partial) window; the file itself is closed by its owner."""
+        if self._open:
+            self._flush_row()
+        self._fh.flush()
+
+
+@dataclass
+class Series:
+    """A time series read back from CSV: column name -> array (levels as float)."""
+
+    columns: dict[str, np.ndarray] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        t = self.columns.get("time")
+        return 0 if t is None else int(t.shape[0])
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self.columns[name]
+
+    def get(self, name: str) -> np.ndarray | None:
+        return self.columns.get(name)
+
+    @property
+    def residual_channels(self) -> list[str]:
+        return [c[len(RESIDUAL_PREFIX):] for c in self.columns if c.startswith(RESIDUAL_PREFIX)]
+
+    @property
+    def checks(self) -> list[str]:
+        return [c[len(LEVEL_PREFIX):] for c in self.columns if c.startswith(LEVEL_PREFIX)]
+
+
+def read_timeseries(path: str | Path) -> Series:
+    """Read a CSV written by ``TimeseriesWriter`` (missing values become NaN)."""
+    with open(path, encoding="utf-8", newline="") as fh:
+        reader = csv.reader(fh)
+        try:
+            header = next(reader)
+        except StopIteration:
+            return Series({})
+        rows = list(reader)
+    return series_from_rows(header, rows)
+
+
+def series_from_rows(header: Sequence[str], rows: Iterable[Sequence[str]]) -> Series:
+    """Build a ``Series`` from a CSV header and string rows."""
+    data = [r for r in rows if len(r) == len(header)]
+    if not data:
+        return Series({h: np.empty(0) for h in header})
+    arr = np.array(data, dtype=object)
+    out: dict[str, np.ndarray] = {}
+    for j, name in enumerate(header):
+        col = arr[:, j]
+        out[name] = np.array([float(v) if v not in ("", "nan") else math.nan for v in col])
+    return Series(out)
