@@ -1,10 +1,12 @@
 """Per-step cost of BicycleEKF beside filterpy's ExtendedKalmanFilter, measured in one run.
 
-Both filters get the same simulated inputs and measurements (predict at 100 Hz, pose at
-10 Hz, yaw rate at 50 Hz), interleaved in one loop so machine noise hits both alike.
+Both filters get the same simulated inputs and measurements (predict at 100 Hz, pose
+and body velocity at 10 Hz, yaw rate at 40 Hz), interleaved in one loop so machine noise
+hits both alike.
 filterpy is given the same exact-arc prediction and Jacobians; its cost includes building
 F, Q and H with numpy, as a user of it would have to. Prints microseconds per call and
-the ratio filterpy / ours (medians over rounds).
+the ratio filterpy / ours: the median of the per-call times of each round (robust to the
+scheduler pre-empting single calls on a shared machine), then the median over rounds.
 
 Run: .venv/bin/python bench/ekf_step.py [--steps N] [--rounds R]
 """
@@ -26,6 +28,7 @@ PARAMS = m.VehicleParams(wheelbase=2.7, cg_to_rear_axle=1.35, wheel_radius=0.31,
 NOISE = FilterNoise()
 POSE_R = np.diag([0.05**2, 0.05**2, 0.01**2])
 RATE_VAR = 1e-4
+VEL_R = np.diag([0.05**2, 0.05**2])
 
 
 class Reference(ExtendedKalmanFilter):
@@ -82,6 +85,20 @@ def rate_h_and_jacobian(xs: np.ndarray, delta: float) -> tuple[float, np.ndarray
     return xs[3] * math.sin(beta) / lr, H
 
 
+def velocity_h_and_jacobian(xs: np.ndarray, delta: float) -> tuple[np.ndarray, np.ndarray]:
+    """Body velocity (vx, vy) of the CG and its 2x5 Jacobian (reference point at the CG)."""
+    d = delta + PARAMS.steering_offset + xs[4]
+    lr, wb = PARAMS.cg_to_rear_axle, PARAMS.wheelbase
+    t = math.tan(d)
+    beta = math.atan(lr * t / wb)
+    dbeta = (lr / wb) * (1 + t * t) / (1 + (lr * t / wb) ** 2)
+    cb, sb = math.cos(beta), math.sin(beta)
+    H = np.zeros((2, 5))
+    H[0, 3], H[0, 4] = cb, -xs[3] * sb * dbeta
+    H[1, 3], H[1, 4] = sb, xs[3] * cb * dbeta
+    return np.array([xs[3] * cb, xs[3] * sb]), H
+
+
 def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
     rng = np.random.default_rng(seed)
     ours = BicycleEKF(PARAMS, NOISE)
@@ -89,7 +106,8 @@ def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
     ref = Reference(dim_x=5, dim_z=3)
     ref.x = ours.state
     ref.P = ours.covariance
-    tot = {k: [0, 0, 0] for k in ("predict", "pose update", "yaw-rate update")}  # ns, ns, n
+    ops = ("predict", "pose update", "velocity update", "yaw-rate update")
+    tot: dict[str, tuple[list[int], list[int]]] = {k: ([], []) for k in ops}  # ns per call
     pc = time.perf_counter_ns
     dt = 0.01
     for k in range(1, steps + 1):
@@ -104,9 +122,8 @@ def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
         ref.predict(u=(dt, delta, speed))
         c = pc()
         row = tot["predict"]
-        row[0] += b - a
-        row[1] += c - b
-        row[2] += 1
+        row[0].append(b - a)
+        row[1].append(c - b)
         if k % 10 == 0:
             z = ours.state[:3] + rng.normal(0, 0.05, 3)
             zx, zy, zyaw = z.tolist()  # plain floats, as message fields arrive
@@ -116,26 +133,37 @@ def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
             ref.update(z, lambda _x: H_POSE, h_pose, R=POSE_R, residual=pose_residual)
             c = pc()
             row = tot["pose update"]
-        elif k % 2 == 0:
-            z = 8.0 * m.curvature(0.15 * math.sin(0.4 * t), PARAMS) + float(rng.normal(0, 0.01))
+        elif k % 10 == 5:
+            zv = (8.0 + float(rng.normal(0, 0.05)), float(rng.normal(0, 0.05)))
             a = pc()
-            ours.update_yaw_rate(z, RATE_VAR)
+            ours.update_body_velocity(zv[0], zv[1], VEL_R)
+            b = pc()
+            hv, Hv = velocity_h_and_jacobian(ref.x, delta)
+            # same effective covariance as BicycleEKF (steering noise through dh/ddelta)
+            rv = VEL_R + NOISE.steer_std**2 * np.outer(Hv[:, 4], Hv[:, 4])
+            ref.update(np.array(zv), lambda _x, H=Hv: H, lambda _x, h=hv: h, R=rv)
+            c = pc()
+            row = tot["velocity update"]
+        elif k % 2 == 0:
+            zr = 8.0 * m.curvature(0.15 * math.sin(0.4 * t), PARAMS) + float(rng.normal(0, 0.01))
+            a = pc()
+            ours.update_yaw_rate(zr, RATE_VAR)
             b = pc()
             h, H = rate_h_and_jacobian(ref.x, delta)
             # same effective variance as BicycleEKF (steering noise through dh/ddelta)
             r = np.array([[RATE_VAR + NOISE.steer_std**2 * H[0, 4] ** 2]])
-            ref.update(np.array([z]), lambda _x, H=H: H, lambda _x, h=h: np.array([h]), R=r)
+            ref.update(np.array([zr]), lambda _x, H=H: H, lambda _x, h=h: np.array([h]), R=r)
             c = pc()
             row = tot["yaw-rate update"]
         else:
             continue
-        row[0] += b - a
-        row[1] += c - b
-        row[2] += 1
+        row[0].append(b - a)
+        row[1].append(c - b)
     diff = ours.state - ref.x
     diff[2] = math.remainder(diff[2], 2 * math.pi)
     assert np.max(np.abs(diff)) < 1e-6, f"filters disagree: {diff}"
-    return {k: (v[0] / v[2] / 1e3, v[1] / v[2] / 1e3) for k, v in tot.items()}
+    med = statistics.median
+    return {k: (med(v[0]) / 1e3, med(v[1]) / 1e3) for k, v in tot.items()}
 
 
 def main() -> None:
