@@ -30,7 +30,7 @@ $(STAMP): setup.py setup.cfg package.xml pyproject.toml
 venv: $(STAMP)
 
 lint: $(STAMP)
-	$(VENV)/bin/ruff check kinematic_monitor test bench launch setup.py
+	$(VENV)/bin/ruff check kinematic_monitor test bench launch tools setup.py
 
 typecheck: $(STAMP)
 	$(VENV)/bin/mypy
