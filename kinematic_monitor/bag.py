@@ -20,6 +20,7 @@ metadata versus read, last good stamp) instead of raising.
 
 from __future__ import annotations
 
+import dataclasses
 import heapq
 import math
 import os
@@ -35,17 +36,21 @@ from typing import Any
 
 import yaml
 
-from . import cdr
+from . import cdr, fieldpath
 from .convert import (
     JointMap,
     Rejected,
+    ScalarInput,
+    ScalarSettings,
     chassis_from_joint_state,
+    chassis_from_scalar_msg,
     gnss_from_fields,
     imu_from_fields,
     localization_from_odometry,
     localization_from_pose,
     stamp_seconds,
 )
+from .convert import scalar_settings as convert_scalar_settings
 from .samples import Sample
 
 __all__ = [
@@ -84,6 +89,8 @@ class BagInputs:
     imu: str = "/imu/data"
     gnss: str = "/gnss/fix"
     max_steer: float = math.pi / 2  # [rad] largest physical road-wheel angle
+    # steering / speed from other message types (inputs.steering.*, inputs.speed.*)
+    scalars: tuple[ScalarSettings, ...] = ()
 
 
 def _lookup(config: Any, dotted: str) -> Any:
@@ -114,8 +121,13 @@ def inputs_from_config(config: Any) -> BagInputs:
 
     Reads ``inputs.joint_states.{topic,steering_joints,front_wheel_joints,
     rear_wheel_joints}``, ``inputs.localization.{topic,type}``, ``inputs.imu.topic``,
-    ``inputs.gnss.topic`` and ``vehicle.max_road_wheel_angle`` [rad].
+    ``inputs.gnss.topic``, ``vehicle.max_road_wheel_angle`` [rad] and the single-value
+    inputs ``inputs.steering.*`` / ``inputs.speed.*``: a configured steering input replaces
+    the JointState steer joints, a speed input its wheel joints; with both, JointState is
+    not read.
     """
+    from .params import SPEC_BY_NAME
+
     base = BagInputs()
 
     def get(name: str, default: Any) -> Any:
@@ -123,6 +135,12 @@ def inputs_from_config(config: Any) -> BagInputs:
             return _lookup(config, name)
         except KeyError:
             return default
+
+    try:
+        scalars = tuple(convert_scalar_settings(lambda n: get(n, SPEC_BY_NAME[n].default)))
+    except ValueError as exc:
+        raise BagError(str(exc)) from None
+    roles = {sc.role for sc in scalars}
 
     inputs = BagInputs(
         joint_states=str(get("inputs.joint_states.topic", base.joint_states)),
@@ -138,7 +156,14 @@ def inputs_from_config(config: Any) -> BagInputs:
         imu=str(get("inputs.imu.topic", base.imu)),
         gnss=str(get("inputs.gnss.topic", base.gnss)),
         max_steer=float(get("vehicle.max_road_wheel_angle", base.max_steer)),
+        scalars=scalars,
     )
+    if "steering" in roles:
+        inputs = dataclasses.replace(inputs, steering_joints=())
+    if "speed" in roles:
+        inputs = dataclasses.replace(inputs, front_wheel_joints=(), rear_wheel_joints=())
+    if roles == {"steering", "speed"}:
+        inputs = dataclasses.replace(inputs, joint_states="")
     if inputs.localization_type not in LOCALIZATION_TYPES:
         raise BagError(
             f"inputs.localization.type is {inputs.localization_type!r}; "
@@ -157,6 +182,8 @@ class TopicStats:
     read: int = 0
     accepted: int = 0
     rejected: Counter[str] = field(default_factory=Counter)
+    # samples stamped with the log (receive) time: the message has no header
+    receive_time_stamped: int = 0
 
 
 @dataclass
@@ -358,6 +385,7 @@ class BagSource:
         self.out_of_order = 0
         self.time_jumps = 0
         self.position = 0
+        self.scalar_inputs: dict[str, list[ScalarInput]] = {}
         self.storage, self._files, meta = _storage_files(self.path)
         self._reader: Any = None
         self._open_error = ""
@@ -471,16 +499,31 @@ class BagSource:
             if topic in used:
                 raise BagError(f"topic {topic!r} is configured for two inputs")
             used[topic] = expected
+        for sc in inp.scalars:
+            param = f"{sc.param_prefix}.topic"
+            if sc.topic not in found:
+                raise BagError(
+                    f"topic {sc.topic!r} ({param}, type {sc.type_name}) is not in bag "
+                    f"{str(self.path)!r}; topics there: {available}")
+            got = found[sc.topic][0]
+            if got != sc.type_name:
+                raise BagError(f"topic {sc.topic!r} ({param}) has type {got}, "
+                               f"expected {sc.type_name} ({sc.param_prefix}.type)")
+            if used.get(sc.topic, sc.type_name) != sc.type_name:
+                raise BagError(f"topic {sc.topic!r} is configured for two inputs")
+            used[sc.topic] = sc.type_name
         return used
 
     # -- decoding -------------------------------------------------------------------------
 
     def _converters(self) -> dict[str, Callable[[bytes], Sample | Rejected]]:
         inp = self.inputs
-        jmap = JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints)
+        jmap = JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints) \
+            if inp.joint_states else None
         max_steer = inp.max_steer
 
         def joint_state(buf: bytes) -> Sample | Rejected:
+            assert jmap is not None  # only used when the JointState topic is read
             f = cdr.decode_joint_state(buf)
             return chassis_from_joint_state(
                 stamp_seconds(f.sec, f.nanosec),
@@ -539,7 +582,64 @@ class BagSource:
             IMU: imu,
             NAVSATFIX: gnss,
         }
-        return {topic: by_type[t] for topic, t in self._used.items()}
+        scalar_topics = {sc.topic for sc in inp.scalars}
+        return {topic: by_type[t] for topic, t in self._used.items() if topic not in scalar_topics}
+
+    def _scalar_converters(self) -> dict[str, Callable[[bytes, int], Sample | Rejected]]:
+        """Topic -> converter of (CDR bytes, log time [ns]) for the single-value inputs.
+
+        Messages are decoded by the rosbags generic deserialiser with the message
+        definitions stored in the bag (standard definitions when the bag has none); the
+        field path is checked against that definition here (BagError naming topic, type
+        and path when it does not lead to a number).
+        """
+        by_topic: dict[str, list[ScalarSettings]] = {}
+        for sc in self.inputs.scalars:
+            by_topic.setdefault(sc.topic, []).append(sc)
+        out: dict[str, Callable[[bytes, int], Sample | Rejected]] = {}
+        self.scalar_inputs = {}
+        for topic, group in by_topic.items():
+            store = self._typestore_for(topic, group[0].type_name)
+            fields_of = _typestore_fields(store)
+            try:
+                planned = [plan_scalar(sc, fields_of) for sc in group]
+            except ValueError as exc:
+                raise BagError(str(exc)) from None
+            self.scalar_inputs[topic] = planned
+            out[topic] = _scalar_converter(store, group[0].type_name, planned)
+        return out
+
+    def _typestore_for(self, topic: str, type_name: str) -> Any:
+        """A rosbags typestore knowing ``type_name`` as defined in the bag."""
+        from rosbags.interfaces import MessageDefinitionFormat
+        from rosbags.typesys import Stores, get_types_from_idl, get_types_from_msg, get_typestore
+
+        conns = [c for c in self._reader.connections if c.topic == topic] \
+            if self._reader is not None else []
+        typs: dict[str, Any] = {}
+        try:
+            for c in conns:
+                fmt, data = c.msgdef.format, c.msgdef.data
+                if fmt == MessageDefinitionFormat.MSG and data:
+                    typs.update(get_types_from_msg(data, c.msgtype))
+                elif fmt == MessageDefinitionFormat.IDL and data:
+                    sep = "=" * 80 + "\n"
+                    parts = data.split(sep)[1:] if data.startswith(f"{sep}IDL: ") else [data]
+                    for part in parts:
+                        typs.update(get_types_from_idl(part.split("\n", 1)[1]
+                                                       if part.startswith("IDL: ") else part))
+        except Exception as exc:  # noqa: BLE001 - any parser error: say which definition
+            raise BagError(f"topic {topic!r}: message definition of {type_name} in the bag "
+                           f"cannot be parsed: {exc}") from None
+        if type_name in typs:
+            store = get_typestore(Stores.EMPTY)
+            store.register(typs)
+            return store
+        store = get_typestore(Stores.LATEST)
+        if type_name not in store.fielddefs:
+            raise BagError(f"topic {topic!r}: bag {str(self.path)!r} carries no message "
+                           f"definition for {type_name} and it is not a standard type")
+        return store
 
     def _raw(self, err: list[str]) -> Iterator[RawRecord]:
         """(topic, log ns, bytes) of the used topics in log order; errors go to ``err``."""
@@ -570,6 +670,9 @@ class BagSource:
         ``progress(position, message_count)`` is called every ``progress_every`` messages.
         """
         convert = self._converters()
+        sconvert = self._scalar_converters()
+        receive_stamped = {t for t, ins in self.scalar_inputs.items()
+                           if ins[0].receive_time_stamped}
         stats = self.stats
         window_ns = int(self.reorder_window * 1e9)
         jump = self.reset_threshold
@@ -585,8 +688,9 @@ class BagSource:
             st.read += 1
             if progress is not None and self.position % progress_every == 0:
                 progress(self.position, self.message_count)
+            fn = convert.get(topic)
             try:
-                got = convert[topic](data)
+                got = fn(data) if fn is not None else sconvert[topic](data, log_ns)
             except cdr.CdrError:
                 st.rejected["malformed"] += 1
                 continue
@@ -594,6 +698,8 @@ class BagSource:
                 st.rejected[got.reason] += 1
                 continue
             st.accepted += 1
+            if topic in receive_stamped:
+                st.receive_time_stamped += 1
             stamp = got.stamp
             if stamp < newest - jump:
                 # a new timeline (bag restarted, simulated time reset): release the old one
@@ -674,3 +780,51 @@ def open_bag(
         reorder_window=reorder_window,
         reset_threshold=reset_threshold,
     )
+
+
+# ---- single-value inputs (generic deserialiser + field paths) ---------------------------
+
+def _typestore_fields(store: Any) -> fieldpath.FieldsOf:
+    """fieldpath look-up (type name -> fields) over a rosbags typestore's definitions."""
+    from rosbags.interfaces import Nodetype
+
+    def field_type(desc: Any) -> fieldpath.FieldType:
+        kind, detail = desc
+        if kind == Nodetype.BASE:
+            return fieldpath.FieldType(str(detail[0]))
+        if kind == Nodetype.NAME:
+            return fieldpath.FieldType(str(detail))
+        inner, length = detail
+        base = field_type(inner).base
+        if kind == Nodetype.ARRAY:
+            return fieldpath.FieldType(base, "fixed", int(length))
+        return fieldpath.FieldType(base, "sequence", int(length or 0))
+
+    def fields_of(name: str) -> dict[str, fieldpath.FieldType] | None:
+        entry = store.fielddefs.get(name)
+        if entry is None:
+            return None
+        return {fname: field_type(desc) for fname, desc in entry[1]}
+
+    return fields_of
+
+
+def plan_scalar(settings: ScalarSettings, fields_of: fieldpath.FieldsOf) -> ScalarInput:
+    """convert.plan_scalar_input (kept here so tests can patch the look-up)."""
+    from .convert import plan_scalar_input
+
+    return plan_scalar_input(settings, fields_of)
+
+
+def _scalar_converter(store: Any, type_name: str, planned: list[ScalarInput]
+                      ) -> Callable[[bytes, int], Sample | Rejected]:
+    deserialize = store.deserialize_cdr
+
+    def convert(buf: bytes, log_ns: int) -> Sample | Rejected:
+        try:
+            msg = deserialize(buf, type_name)
+        except Exception as exc:  # noqa: BLE001 - rosbags raises several error types
+            raise cdr.CdrError(str(exc)) from None
+        return chassis_from_scalar_msg(msg, planned, log_ns * 1e-9)
+
+    return convert

@@ -34,6 +34,14 @@ __all__ = [
     "localization_from_pose_msg",
     "imu_from_msg",
     "gnss_from_msg",
+    "STANDARD_SCALAR_TYPES",
+    "ScalarSettings",
+    "ScalarInput",
+    "scalar_settings",
+    "plan_scalar_input",
+    "chassis_from_scalars",
+    "scalar_stamp",
+    "chassis_from_scalar_msg",
 ]
 
 #: every rejection reason a converter can give, with its meaning
@@ -49,6 +57,7 @@ REASONS: dict[str, str] = {
     "no_fix": "NavSatFix status STATUS_NO_FIX",
     "out_of_range": "latitude or longitude outside [-90, 90] / [-180, 180] degrees",
     "malformed": "message bytes could not be decoded",
+    "missing_field": "the configured field path is not in this message (e.g. short sequence)",
 }
 
 #: below this squared norm a quaternion has no usable orientation
@@ -112,11 +121,13 @@ class JointMap:
             ("front_wheel_joints", self.front),
             ("rear_wheel_joints", self.rear),
         ):
-            if len(group) not in ((2,) if label == "steering_joints" else (0, 2)):
-                allowed = "[left, right]" + ("" if label == "steering_joints" else " or []")
-                raise ValueError(f"{label} must be {allowed}, got {list(group)!r}")
+            if len(group) not in (0, 2):
+                raise ValueError(f"{label} must be [left, right] or [], got {list(group)!r}")
             if any(not isinstance(n, str) or not n for n in group):
                 raise ValueError(f"{label} must hold non-empty joint names, got {list(group)!r}")
+        if not self.steering and not (self.front or self.rear):
+            raise ValueError("steering_joints may be [] only when wheel joints are given "
+                             "(steering then comes from another input)")
         every = self.steering + self.front + self.rear
         if len(set(every)) != len(every):
             raise ValueError(f"configured joint names must be distinct, got {list(every)!r}")
@@ -166,27 +177,32 @@ def chassis_from_joint_state(
     """Steering angles [rad] (joint positions) and wheel speeds [rad/s] (joint velocities).
 
     ``max_steer`` [rad] is the largest physically possible road-wheel angle; larger
-    magnitudes are rejected. Velocities may be empty when no wheel joints are configured.
+    magnitudes are rejected. Velocities may be empty when no wheel joints are configured;
+    positions may be empty when no steering joints are (steering from another input).
     """
     if not (stamp > 0.0 and _isfinite(stamp)):
         return _BAD_STAMP
     n = len(names)
-    if len(positions) != n:
+    ns = len(jmap.steering)
+    if ns and len(positions) != n:
         return _LENGTH
     idx = jmap.resolve(names)
     if isinstance(idx, Rejected):
         return idx
-    sl = positions[idx[0]]
-    sr = positions[idx[1]]
-    if not (_isfinite(sl) and _isfinite(sr)):
-        return _NAN
-    if abs(sl) > max_steer or abs(sr) > max_steer:
-        return _STEER
-    if len(idx) == 2:
+    if ns:
+        sl = positions[idx[0]]
+        sr = positions[idx[1]]
+        if not (_isfinite(sl) and _isfinite(sr)):
+            return _NAN
+        if abs(sl) > max_steer or abs(sr) > max_steer:
+            return _STEER
+    else:
+        sl = sr = math.nan
+    if len(idx) == ns:
         return ChassisSample(stamp, steer_left=sl, steer_right=sr)
     if len(velocities) != n:
         return _LENGTH
-    w = [velocities[i] for i in idx[2:]]
+    w = [velocities[i] for i in idx[ns:]]
     for v in w:
         if not _isfinite(v):
             return _NAN
@@ -451,3 +467,169 @@ def gnss_from_msg(msg: Any) -> GnssSample | Rejected:
         float(msg.longitude),
         float(msg.altitude),
     )
+
+
+# ---- single-value inputs: steering and speed from other message types -------------------
+
+#: message type and field path behind each standard ``inputs.steering.type`` /
+#: ``inputs.speed.type`` choice ('field' takes both from the parameters)
+STANDARD_SCALAR_TYPES: dict[str, tuple[str, str]] = {
+    "float64": ("std_msgs/msg/Float64", "data"),
+    "float32": ("std_msgs/msg/Float32", "data"),
+    "twist_stamped": ("geometry_msgs/msg/TwistStamped", "twist.linear.x"),
+}
+
+
+@dataclass(frozen=True)
+class ScalarSettings:
+    """One ``inputs.steering.*`` or ``inputs.speed.*`` group as configured (unchecked paths).
+
+    value = (raw * scale + offset) / divisor: steering in rad (road-wheel, bicycle
+    equivalent; ``divisor`` = vehicle.steering_ratio for steering-wheel angles), speed in
+    m/s (taken as the speed of the centre of gravity, body x forward).
+    """
+
+    role: str  # 'steering' | 'speed'
+    topic: str
+    type: str  # 'float64' | 'float32' | 'twist_stamped' | 'field'
+    type_name: str  # pkg/msg/Name
+    field: str
+    scale: float = 1.0
+    offset: float = 0.0
+    divisor: float = 1.0
+    max_abs: float = math.inf  # [rad] largest plausible road-wheel angle (steering only)
+
+    @property
+    def param_prefix(self) -> str:
+        """``inputs.steering`` or ``inputs.speed``."""
+        return f"inputs.{self.role}"
+
+    def describe(self) -> str:
+        """'topic (type, field path)' for messages."""
+        return f"{self.topic} ({self.type_name}, field '{self.field}')"
+
+
+@dataclass(frozen=True)
+class ScalarInput:
+    """A checked single-value input: settings plus the field plan (where number and stamp are)."""
+
+    settings: ScalarSettings
+    plan: Any  # fieldpath.FieldPlan
+
+    @property
+    def receive_time_stamped(self) -> bool:
+        """True when the message has no header on the path (samples take the receive time)."""
+        return self.plan.stamp_path is None
+
+
+def scalar_settings(get: Any) -> list[ScalarSettings]:
+    """The enabled steering/speed inputs from ``get(dotted_name)`` (a parameter look-up).
+
+    Standard types fill in their message type and field path. The scale must be finite and
+    non-zero (ValueError naming the parameter otherwise).
+    """
+    out: list[ScalarSettings] = []
+    for role in ("steering", "speed"):
+        pre = f"inputs.{role}."
+        topic = str(get(pre + "topic"))
+        if not topic:
+            continue
+        kind = str(get(pre + "type"))
+        if kind == "field":
+            type_name, field = str(get(pre + "type_name")), str(get(pre + "field"))
+        elif kind in STANDARD_SCALAR_TYPES:
+            type_name, field = STANDARD_SCALAR_TYPES[kind]
+        else:
+            raise ValueError(f"parameter '{pre}type': bad value {kind!r}")
+        scale = float(get(pre + "scale"))
+        if not (math.isfinite(scale) and scale != 0.0):
+            raise ValueError(f"parameter '{pre}scale': bad value {scale!r}; "
+                             "allowed: a finite, non-zero number")
+        offset = float(get(pre + "offset"))
+        if not math.isfinite(offset):
+            raise ValueError(f"parameter '{pre}offset': bad value {offset!r}; "
+                             "allowed: a finite number")
+        divisor, max_abs = 1.0, math.inf
+        if role == "steering":
+            max_abs = float(get("vehicle.max_road_wheel_angle"))
+            if str(get(pre + "kind")) == "steering_wheel":
+                divisor = float(get("vehicle.steering_ratio"))
+        out.append(ScalarSettings(role, topic, kind, type_name, field, scale, offset,
+                                  divisor, max_abs))
+    return out
+
+
+def plan_scalar_input(settings: ScalarSettings, fields_of: Any) -> ScalarInput:
+    """Check the field path against the message type (``fields_of``, see fieldpath.plan).
+
+    Raises ValueError naming the parameter group, topic, type and path.
+    """
+    from . import fieldpath
+
+    try:
+        path = fieldpath.parse(settings.field)
+        plan = fieldpath.plan(settings.type_name, path, fields_of)
+    except fieldpath.FieldPathError as exc:
+        raise ValueError(
+            f"{settings.param_prefix}: topic {settings.topic}, type {settings.type_name}, "
+            f"field '{settings.field}': {exc}") from None
+    return ScalarInput(settings, plan)
+
+
+def _scaled(raw: float, s: ScalarSettings) -> float:
+    return (raw * s.scale + s.offset) / s.divisor
+
+
+def chassis_from_scalars(
+    stamp: float, values: Sequence[tuple[ScalarSettings, float]]
+) -> ChassisSample | Rejected:
+    """ChassisSample with ``steer`` [rad] and/or ``speed`` [m/s] from raw input values.
+
+    ``values`` holds (settings, raw value) for each input read from one message (one, or
+    two when steering and speed share a topic). A non-finite value rejects ('nan'); a
+    steering angle beyond ``max_abs`` rejects ('steer_out_of_range').
+    """
+    if not (stamp > 0.0 and _isfinite(stamp)):
+        return _BAD_STAMP
+    steer = speed = math.nan
+    for settings, raw in values:
+        v = _scaled(raw, settings)
+        if not _isfinite(v):
+            return _NAN
+        if settings.role == "steering":
+            if abs(v) > settings.max_abs:
+                return _STEER
+            steer = v
+        else:
+            speed = v
+    return ChassisSample(stamp, steer=steer, speed=speed)
+
+
+def scalar_stamp(msg: Any, inp: ScalarInput, receive_time: float) -> float:
+    """Header stamp [s] found by the plan, else ``receive_time`` [s]."""
+    from . import fieldpath
+
+    sp = inp.plan.stamp_path
+    if sp is None:
+        return receive_time
+    st = fieldpath.resolve(msg, sp)
+    return stamp_seconds(int(st.sec), int(st.nanosec))
+
+
+def chassis_from_scalar_msg(
+    msg: Any, inputs: Sequence[ScalarInput], receive_time: float
+) -> ChassisSample | Rejected:
+    """Message object (rclpy or rosbags) -> ChassisSample from one or two ScalarInputs.
+
+    The stamp is that of the first input (header stamp, or ``receive_time`` [s] when the
+    message has no header). A path that fails on this message (e.g. an index beyond a
+    sequence's length) rejects with 'missing_field'.
+    """
+    from . import fieldpath
+
+    try:
+        stamp = scalar_stamp(msg, inputs[0], receive_time)
+        values = [(i.settings, fieldpath.resolve_number(msg, i.plan.path)) for i in inputs]
+    except fieldpath.FieldPathError as exc:
+        return Rejected("missing_field", str(exc))
+    return chassis_from_scalars(stamp, values)

@@ -289,6 +289,9 @@ class KinematicMonitorNode(Node):
         are closed at the last stamp and the monitor restarts with the new configuration
         (its filter re-initialises from the next samples).
         """
+        to = config.timeouts
+        self.buffer.stream_timeouts.update(
+            joint_states=to.joint_states, localization=to.localization, imu=to.imu)
         fn = getattr(self.monitor, "reconfigure", None)
         if callable(fn):
             fn(config)
@@ -314,10 +317,23 @@ class KinematicMonitorNode(Node):
 
         self.monitor = Monitor(cfg)
         lag = cfg.inputs.reorder_window
-        self.buffer = ordering.ReorderBuffer(lag, reset_threshold=max(1.0, 2.0 * lag + 0.5))
+        # watermark release: a sample goes out once every live input has passed its stamp
+        # (at the latest after the lag); an input silent past its timeout stops holding it
+        to = cfg.timeouts
+        self.buffer = ordering.ReorderBuffer(
+            lag, reset_threshold=max(1.0, 2.0 * lag + 0.5),
+            stream_timeouts={"joint_states": to.joint_states, "localization": to.localization,
+                             "imu": to.imu}, default_timeout=1.0)
         js = cfg.inputs.joint_states
-        self.joint_map = convert.JointMap(js.steering_joints, js.front_wheel_joints,
-                                          js.rear_wheel_joints)
+        self._scalar_inputs = self._plan_scalar_inputs()
+        roles = {i.settings.role for group in self._scalar_inputs.values() for i in group}
+        # a steering input replaces the steer joints, a speed input the wheel joints
+        self._joint_states_topic = "" if roles == {"steering", "speed"} else js.topic
+        self.joint_map = convert.JointMap(
+            () if "steering" in roles else js.steering_joints,
+            () if "speed" in roles else js.front_wheel_joints,
+            () if "speed" in roles else js.rear_wheel_joints) if self._joint_states_topic \
+            else None
         self._max_steer = cfg.vehicle.max_road_wheel_angle * cfg.vehicle.steering_ratio
         path = cfg.output.events_log
         self.event_log: events.EventLogWriter | None = None
@@ -329,6 +345,35 @@ class KinematicMonitorNode(Node):
                     f"parameter 'output.events_log': cannot open {path!r}: {exc.strerror}"
                 ) from exc
             self.get_logger().info(f"event log: {os.path.abspath(path)}")
+
+    def _plan_scalar_inputs(self) -> dict[str, list[convert.ScalarInput]]:
+        """Topic -> checked steering/speed inputs (message class imported by type name)."""
+        out: dict[str, list[convert.ScalarInput]] = {}
+        self._scalar_classes: dict[str, Any] = {}
+        try:
+            for st in convert.scalar_settings(self.config.get):
+                try:
+                    cls = rm.import_message_class(st.type_name)
+                except ImportError as exc:
+                    raise StartupError(f"{st.param_prefix}: topic {st.topic}: {exc}") from None
+                out.setdefault(st.topic, []).append(
+                    convert.plan_scalar_input(st, rm.rclpy_fields_of))
+                self._scalar_classes[st.topic] = cls
+        except ValueError as exc:
+            raise StartupError(str(exc)) from None
+        return out
+
+    def _scalar_callback(self, topic: str, name: str) -> Callable[[Any], Any]:
+        planned = self._scalar_inputs[topic]
+        receive_stamped = planned[0].receive_time_stamped
+
+        def conv(msg: Any) -> Any:
+            got = convert.chassis_from_scalar_msg(msg, planned, self.now_sec())
+            if receive_stamped and not isinstance(got, convert.Rejected):
+                self.counters[f"receive_time_stamped.{name}"] += 1
+            return got
+
+        return conv
 
     # --- subscriptions / publishers / timers --------------------------------------------
     def _create_io(self) -> None:
@@ -345,8 +390,24 @@ class KinematicMonitorNode(Node):
             self.get_logger().info(
                 f"input {name}: {topic} ({msg_type.__name__}, {cfg.inputs.qos})")
 
-        sub(JointState, cfg.inputs.joint_states.topic, "joint_states",
-            lambda m: convert.chassis_from_msg(m, self.joint_map, self._max_steer))
+        jmap = self.joint_map
+        if jmap is None:
+            self.get_logger().info("input joint_states: not read (inputs.steering and "
+                                   "inputs.speed replace it)")
+        else:
+            sub(JointState, self._joint_states_topic, "joint_states",
+                lambda m: convert.chassis_from_msg(m, jmap, self._max_steer))
+        for topic, planned in self._scalar_inputs.items():
+            name = "+".join(i.settings.role for i in planned)
+            sub(self._scalar_classes[topic], topic, name, self._scalar_callback(topic, name))
+            for i in planned:
+                stamp = (f"stamp {i.plan.stamp_path}" if i.plan.stamp_path is not None
+                         else "no header: receive-time stamped")
+                self.get_logger().info(
+                    f"input {i.settings.role}: {i.settings.describe()} x {i.settings.scale:g} "
+                    f"+ {i.settings.offset:g}"
+                    + (f" / {i.settings.divisor:g}" if i.settings.divisor != 1.0 else "")
+                    + f"; {stamp}")
         loc = cfg.inputs.localization
         if loc.type == "pose_with_covariance":
             sub(PoseWithCovarianceStamped, loc.topic, "localization",
@@ -407,7 +468,7 @@ class KinematicMonitorNode(Node):
             return
         self.counters[f"received.{name}"] += 1
         self._rx_latency.append(time.time() - result.stamp)
-        self._process_released(self.buffer.push(result))
+        self._process_released(self.buffer.push(result, name))
 
     def _process_released(self, released: list[Any]) -> None:
         """Feed released samples (and TimeReset markers) to the monitor in stamp order."""
@@ -500,6 +561,8 @@ class KinematicMonitorNode(Node):
             "latency_p99 [ms]": 1e3 * _percentile(lat, 0.99),
             "reorder_window [s]": self.buffer.lag,
             "late_dropped": self.buffer.late_dropped,
+            "released_by_watermark": self.buffer.released_by_watermark,
+            "released_by_lag": self.buffer.released_by_lag,
             "time_resets": self.buffer.resets,
         }
         mon_counters = getattr(self.monitor, "counters", None)

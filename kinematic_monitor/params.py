@@ -24,7 +24,8 @@ from typing import IO, Any, Literal, TypeVar, get_type_hints
 import yaml
 
 ParamType = Literal["double", "integer", "bool", "string", "string_array", "double_array"]
-StringKind = Literal["text", "topic", "optional_topic", "frame", "path", "joint"]
+StringKind = Literal["text", "topic", "optional_topic", "frame", "path", "joint",
+                     "msg_type", "field_path"]
 
 NODE_NAME = "kinematic_monitor"
 ROS_PARAMETERS_KEY = "ros__parameters"
@@ -135,6 +136,8 @@ _KIND_TEXT: dict[str, str] = {
     "frame": "a frame id without leading '/' or spaces",
     "path": "a file path without '..' components",
     "joint": "non-empty, distinct joint names",
+    "msg_type": "a message type package/msg/Name, or ''",
+    "field_path": "a field path such as a.b[2].c, or ''",
 }
 
 
@@ -216,6 +219,42 @@ SPECS: tuple[ParamSpec, ...] = (
             choices=("sensor_data", "reliable")),
     _double("inputs.reorder_window", 0.05, "s",
             "How long samples wait so that late messages can be put in stamp order.", 0.0, 1.0),
+    # steering and speed from other message types (replace the JointState joints)
+    _string("inputs.steering.topic", "",
+            "Steering-angle topic replacing the JointState steer joints; '' = off.",
+            "optional_topic"),
+    _string("inputs.steering.type", "float64",
+            "Message on inputs.steering.topic: std_msgs Float64/Float32 'data', or 'field' "
+            "(inputs.steering.type_name + field).", choices=("float64", "float32", "field")),
+    _string("inputs.steering.type_name", "",
+            "Message type for type 'field', as package/msg/Name.", "msg_type"),
+    _string("inputs.steering.field", "",
+            "Field path to the angle for type 'field', e.g. report.road_wheel_angle or "
+            "wheels[0].angle.", "field_path"),
+    _double("inputs.steering.scale", 1.0, "-",
+            "Raw value times scale plus offset gives the angle in rad (pi/180 for degrees); "
+            "non-zero.", -1e6, 1e6),
+    _double("inputs.steering.offset", 0.0, "rad",
+            "Added to the scaled value (before dividing by vehicle.steering_ratio).",
+            -10.0, 10.0),
+    _string("inputs.steering.kind", "road_wheel",
+            "Angle measured: 'road_wheel' (bicycle-equivalent road-wheel angle) or "
+            "'steering_wheel' (divided by vehicle.steering_ratio).",
+            choices=("road_wheel", "steering_wheel")),
+    _string("inputs.speed.topic", "",
+            "Vehicle speed topic replacing the JointState wheel joints; '' = off.",
+            "optional_topic"),
+    _string("inputs.speed.type", "twist_stamped",
+            "Message on inputs.speed.topic: geometry_msgs TwistStamped twist.linear.x, or "
+            "'field' (inputs.speed.type_name + field).", choices=("twist_stamped", "field")),
+    _string("inputs.speed.type_name", "",
+            "Message type for type 'field', as package/msg/Name.", "msg_type"),
+    _string("inputs.speed.field", "",
+            "Field path to the speed for type 'field', e.g. report.speed.", "field_path"),
+    _double("inputs.speed.scale", 1.0, "-",
+            "Raw value times scale plus offset gives the speed in m/s (1/3.6 for km/h); "
+            "non-zero.", -1e6, 1e6),
+    _double("inputs.speed.offset", 0.0, "m/s", "Added to the scaled speed.", -10.0, 10.0),
     # noise: sensor noise the statistical thresholds come from
     _double("noise.steering_angle_std", 0.002, "rad", "Std. dev. of the road-wheel angle.",
             0.0, 0.5, lo_inc=False, runtime=True),
@@ -301,6 +340,9 @@ def _check_schema() -> None:
 _TOPIC_TOKEN = r"[A-Za-z_][A-Za-z0-9_]*"
 _TOPIC_RE = re.compile(rf"^(~/|/)?{_TOPIC_TOKEN}(/{_TOPIC_TOKEN})*$")
 _FRAME_RE = re.compile(r"^[A-Za-z0-9_][A-Za-z0-9_./-]*$")
+_MSG_TYPE_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*/msg/[A-Za-z][A-Za-z0-9_]*$")
+_FIELD_SEGMENT = r"[A-Za-z][A-Za-z0-9_]*(\[\d{1,6}\])*"
+_FIELD_PATH_RE = re.compile(rf"^{_FIELD_SEGMENT}(\.{_FIELD_SEGMENT})*$")
 
 
 def _is_number(value: Any) -> bool:
@@ -376,6 +418,10 @@ def _string_ok(spec: ParamSpec, text: str) -> bool:
         return text.strip() != "" and ".." not in re.split(r"[/\\]", text)
     if kind == "joint":
         return text.strip() != "" and text.isprintable()
+    if kind == "msg_type":
+        return text == "" or bool(_MSG_TYPE_RE.match(text))
+    if kind == "field_path":
+        return text == "" or bool(_FIELD_PATH_RE.match(text))
     return True
 
 
@@ -643,6 +689,45 @@ def _check_cross_fields(v: Mapping[str, Any]) -> None:
                                  f"joint names not used elsewhere ('{joint}' is also in "
                                  f"{seen[joint]})")
             seen[joint] = name
+    _check_scalar_inputs(v)
+
+
+def _check_scalar_inputs(v: Mapping[str, Any]) -> None:
+    """inputs.steering / inputs.speed: complete 'field' settings, non-zero scale, own topic."""
+    others = {v[n]: n for n in ("inputs.joint_states.topic", "inputs.localization.topic",
+                                "inputs.localization.reset_topic", "inputs.imu.topic",
+                                "inputs.gnss.topic") if v[n]}
+    for role in ("steering", "speed"):
+        pre = f"inputs.{role}."
+        topic = v[pre + "topic"]
+        if not topic:
+            continue
+        if v[pre + "scale"] == 0.0:
+            raise ParamError(pre + "scale", v[pre + "scale"], "a finite, non-zero number")
+        if topic in others:
+            raise ParamError(pre + "topic", topic, f"a topic not used by {others[topic]}")
+        if v[pre + "type"] == "field":
+            for leaf in ("type_name", "field"):
+                if not v[pre + leaf]:
+                    raise ParamError(pre + leaf, "", f"required when {pre}type is 'field'; "
+                                     + SPEC_BY_NAME[pre + leaf].allowed_text())
+    if role_topics_clash(v):
+        raise ParamError("inputs.speed.topic", v["inputs.speed.topic"],
+                         "a topic other than inputs.steering.topic, unless both inputs have "
+                         "type 'field' with the same type_name")
+    if v["inputs.steering.topic"] and v["inputs.steering.kind"] == "steering_wheel" \
+            and v["vehicle.steering_ratio"] == 1.0:
+        raise ParamError("inputs.steering.kind", "steering_wheel",
+                         "'road_wheel' unless vehicle.steering_ratio is set (it is 1.0)")
+
+
+def role_topics_clash(v: Mapping[str, Any]) -> bool:
+    """True when steering and speed share a topic but not one message type ('field')."""
+    st, sp = v["inputs.steering.topic"], v["inputs.speed.topic"]
+    if not st or st != sp:
+        return False
+    return not (v["inputs.steering.type"] == v["inputs.speed.type"] == "field"
+                and v["inputs.steering.type_name"] == v["inputs.speed.type_name"])
 
 
 # ---------------------------------------------------------------------------------------------

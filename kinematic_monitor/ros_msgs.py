@@ -354,3 +354,65 @@ def navsatfix_msg(s: GnssSample, frame_id: str = "gnss") -> NavSatFix:
     msg.longitude = float(s.longitude)
     msg.altitude = float(s.altitude) if math.isfinite(s.altitude) else 0.0
     return msg
+
+
+# --- message classes by type name (inputs of vehicle-specific types) ----------------------
+
+_RCL_PRIMITIVES = {
+    "double": "float64", "float": "float32", "boolean": "bool", "octet": "byte",
+    "long double": "float64",
+}
+
+
+def import_message_class(type_name: str) -> Any:
+    """The rclpy message class for ``pkg/msg/Name`` (importlib, no rosidl_runtime_py).
+
+    Raises ImportError naming the type when its package is not installed or has no such
+    message.
+    """
+    import importlib
+
+    from kinematic_monitor.fieldpath import FieldPathError, normalize_type_name
+
+    try:
+        full = normalize_type_name(type_name)
+    except FieldPathError as exc:
+        raise ImportError(str(exc)) from None
+    pkg, _, name = full.split("/")
+    try:
+        module = importlib.import_module(f"{pkg}.msg")
+    except ImportError as exc:
+        raise ImportError(f"message type {full}: package '{pkg}' is not installed for this "
+                          f"Python ({exc})") from None
+    cls = getattr(module, name, None)
+    if cls is None or not hasattr(cls, "get_fields_and_field_types"):
+        raise ImportError(f"message type {full}: package '{pkg}' has no message '{name}'")
+    return cls
+
+
+def _rcl_field_type(text: str) -> Any:
+    """rclpy field type string ('double', 'sequence<double, 3>', 'pkg/Name[2]') -> FieldType."""
+    from kinematic_monitor.fieldpath import FieldType, normalize_type_name
+
+    text = text.strip()
+    if text.startswith("sequence<") and text.endswith(">"):
+        inner = text[len("sequence<"):-1].split(",")[0]
+        return FieldType(_rcl_field_type(inner).base, "sequence")
+    if text.endswith("]") and "[" in text:
+        base, _, n = text[:-1].rpartition("[")
+        if n.startswith("<="):
+            return FieldType(_rcl_field_type(base).base, "sequence")
+        return FieldType(_rcl_field_type(base).base, "fixed", int(n))
+    if "/" in text:
+        return FieldType(normalize_type_name(text))
+    base = text.split("<")[0]  # bounded strings: string<10>
+    return FieldType(_RCL_PRIMITIVES.get(base, base))
+
+
+def rclpy_fields_of(type_name: str) -> Any:
+    """fieldpath look-up over installed rclpy message classes (None if not importable)."""
+    try:
+        cls = import_message_class(type_name)
+    except ImportError:
+        return None
+    return {name: _rcl_field_type(t) for name, t in cls.get_fields_and_field_types().items()}

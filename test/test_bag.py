@@ -260,3 +260,140 @@ def test_truncated_bag_read_up_to_damage(
     assert "read up to stamp" in damage.summary()
     if fraction >= 0.5:  # most of what is before the cut comes back
         assert len(samples) > 0.3 * fraction * 1500
+
+
+# ---- steering and speed from other message types (inputs.steering / inputs.speed) -------
+# Field paths, scale and offset per the parameter descriptions in kinematic_monitor/params.py;
+# message layouts from the ROS 2 definitions of std_msgs/Float64 and
+# geometry_msgs/TwistStamped (rosbags' bundled typestore serialises them here).
+
+STEER_REPORT_MSG = """\
+std_msgs/Header header
+float64 road_wheel_angle_deg
+float64[2] spare
+"""  # invented vehicle message of our proving-ground car
+
+
+def _scalar_bag(path: Path, storage: StoragePlugin = StoragePlugin.SQLITE3,
+                custom: bool = False, seconds: float = 1.0) -> Path:
+    """Float64 (or custom SteerReport) steering 50 Hz, TwistStamped speed 50 Hz, Odometry."""
+    from rosbags.typesys import get_types_from_msg
+
+    ts = get_typestore(Stores.ROS2_HUMBLE)
+    if custom:
+        ts.register(get_types_from_msg(STEER_REPORT_MSG, "proving_msgs/msg/SteerReport"))
+    Vec = ts.types["geometry_msgs/msg/Vector3"]
+    records: list[tuple[float, str, bytes]] = []
+    for i in range(int(seconds * 50)):
+        t = T0 + i * 0.02
+        if custom:
+            msg = ts.types["proving_msgs/msg/SteerReport"](
+                header=_hdr(t), road_wheel_angle_deg=2.0 + 0.01 * i,
+                spare=np.zeros(2, dtype=np.float64))
+            data = ts.serialize_cdr(msg, "proving_msgs/msg/SteerReport")
+        else:
+            data = ts.serialize_cdr(ts.types["std_msgs/msg/Float64"](data=0.03 + 0.001 * i),
+                                    "std_msgs/msg/Float64")
+        records.append((t + 0.005, "/steering", bytes(data)))
+        tw = ts.types["geometry_msgs/msg/TwistStamped"](
+            header=_hdr(t + 0.01), twist=ts.types["geometry_msgs/msg/Twist"](
+                linear=Vec(36.0, 0.0, 0.0), angular=Vec(0.0, 0.0, 0.0)))
+        records.append((t + 0.012, "/speed", bytes(ts.serialize_cdr(
+            tw, "geometry_msgs/msg/TwistStamped"))))
+        records.append((t + 0.013, "/localization/odom", odometry(t, 10.0 * i * 0.02)))
+    records.sort(key=lambda r: r[0])
+    types = {"/steering": "proving_msgs/msg/SteerReport" if custom else "std_msgs/msg/Float64",
+             "/speed": "geometry_msgs/msg/TwistStamped",
+             "/localization/odom": "nav_msgs/msg/Odometry"}
+    with Writer(path, version=9, storage_plugin=storage) as w:
+        conns = {t: w.add_connection(t, m, typestore=ts) for t, m in types.items()}
+        for log_t, topic, data in records:
+            w.write(conns[topic], int(round(log_t * 1e9)), data)
+    return path
+
+
+SCALAR_CFG = {"inputs": {
+    "imu": {"topic": ""}, "gnss": {"topic": ""},
+    "steering": {"topic": "/steering", "type": "float64"},
+    "speed": {"topic": "/speed", "type": "twist_stamped", "scale": 1 / 3.6},  # km/h -> m/s
+}}
+
+
+@pytest.mark.parametrize("storage", STORAGES)
+def test_float64_steering_and_twist_speed_without_joint_states(
+        tmp_path: Path, storage: StoragePlugin) -> None:
+    bag = _scalar_bag(tmp_path / "b", storage)
+    with open_bag(bag, SCALAR_CFG) as src:
+        assert "/joint_states" not in src.stats  # replaced by both inputs: not read
+        samples = list(src.iter_samples())
+        steer = [s for s in samples if isinstance(s, ChassisSample) and math.isfinite(s.steer)]
+        speed = [s for s in samples if isinstance(s, ChassisSample) and math.isfinite(s.speed)]
+        assert len(steer) == len(speed) == 50
+        # Float64 has no header: stamped with the log time, and counted as such
+        assert steer[0].stamp == pytest.approx(T0 + 0.005, abs=1e-6)
+        assert steer[3].steer == pytest.approx(0.033)
+        assert math.isnan(steer[0].speed)
+        assert src.stats["/steering"].receive_time_stamped == 50
+        # TwistStamped: header stamp, twist.linear.x scaled km/h -> m/s
+        assert speed[0].stamp == pytest.approx(T0 + 0.01, abs=1e-6)
+        assert speed[0].speed == pytest.approx(10.0)
+        assert src.stats["/speed"].receive_time_stamped == 0
+        stamps = [s.stamp for s in samples]
+        assert stamps == sorted(stamps)
+
+
+def test_custom_type_from_bag_definition_with_degree_scale(tmp_path: Path) -> None:
+    bag = _scalar_bag(tmp_path / "b", custom=True)
+    cfg = {"inputs": {**SCALAR_CFG["inputs"], "steering": {
+        "topic": "/steering", "type": "field", "type_name": "proving_msgs/msg/SteerReport",
+        "field": "road_wheel_angle_deg", "scale": math.pi / 180}}}
+    with open_bag(bag, cfg) as src:
+        steer = [s for s in src.iter_samples()
+                 if isinstance(s, ChassisSample) and math.isfinite(s.steer)]
+        assert len(steer) == 50 and src.stats["/steering"].receive_time_stamped == 0
+        assert steer[0].stamp == pytest.approx(T0, abs=1e-6)  # the message's header stamp
+        assert steer[10].steer == pytest.approx(math.radians(2.1))
+        assert src.stats["/steering"].msgtype == "proving_msgs/msg/SteerReport"
+
+
+@pytest.mark.parametrize(("field", "words"), [
+    ("road_wheel_angle", "no field 'road_wheel_angle'"),
+    ("spare[2]", "beyond"),
+    ("header.frame_id", "not a number"),
+])
+def test_bad_field_path_names_topic_type_and_path(tmp_path: Path, field: str,
+                                                  words: str) -> None:
+    bag = _scalar_bag(tmp_path / "b", custom=True, seconds=0.1)
+    cfg = {"inputs": {**SCALAR_CFG["inputs"], "steering": {
+        "topic": "/steering", "type": "field", "type_name": "proving_msgs/msg/SteerReport",
+        "field": field}}}
+    with pytest.raises(BagError) as info, open_bag(bag, cfg) as src:
+        list(src.iter_samples())
+    text = str(info.value)
+    assert "/steering" in text and "proving_msgs/msg/SteerReport" in text
+    assert field in text and words in text
+
+
+def test_scalar_topic_with_wrong_type_is_refused(tmp_path: Path) -> None:
+    bag = _scalar_bag(tmp_path / "b", seconds=0.1)
+    cfg = {"inputs": {**SCALAR_CFG["inputs"], "speed": {"topic": "/steering"},
+                      "steering": {"topic": "/speed"}}}
+    with pytest.raises(BagError, match="'/speed' .*TwistStamped, expected std_msgs/msg/Float64"):
+        open_bag(bag, cfg)
+
+
+def test_steering_input_keeps_joint_state_wheels(tmp_path: Path) -> None:
+    # steering from a Float64 topic, wheel speeds still from JointState
+    ts = get_typestore(Stores.ROS2_HUMBLE)
+    extra = [("/steer_angle", "std_msgs/msg/Float64", T0 + 0.0105 + 0.01 * i,
+              bytes(ts.serialize_cdr(ts.types["std_msgs/msg/Float64"](data=0.02),
+                                     "std_msgs/msg/Float64"))) for i in range(100)]
+    bag = write_bag(tmp_path / "b", StoragePlugin.SQLITE3, seconds=1.0, extra=extra)
+    cfg = {"inputs": {"gnss": {"topic": ""}, "steering": {"topic": "/steer_angle"}}}
+    with open_bag(bag, cfg) as src:
+        chassis = [s for s in src.iter_samples() if isinstance(s, ChassisSample)]
+    from_js = [s for s in chassis if math.isfinite(s.wheel_rear_left)]
+    from_float = [s for s in chassis if math.isfinite(s.steer)]
+    assert len(from_js) == 100 and len(from_float) == 100
+    assert all(math.isnan(s.steer_left) and math.isnan(s.steer) for s in from_js)
+    assert from_js[0].wheel_rear_left == 30.0 and from_float[0].steer == 0.02

@@ -317,3 +317,104 @@ def test_descriptors_carry_range_and_read_only() -> None:
     assert "(0, 20]" in d.additional_constraints
     n = node.descriptor_for(params.SPEC_BY_NAME["checks.nis_window"])
     assert not n.read_only and n.integer_range[0].from_value == 1
+
+
+# --- steering and speed from other message types ------------------------------------------
+# Float64 steering (no header: receive-time stamped) and a field path on a standard stamped
+# type (geometry_msgs/Vector3Stamped, field vector.z as speed in km/h); layouts from the
+# ROS 2 message definitions. Expected speed 36 km/h / 3.6 = 10 m/s.
+
+SCALAR_EXTRA = """\
+    inputs:
+      gnss:
+        topic: ""
+      imu:
+        topic: ""
+      steering:
+        topic: "/vehicle/steer"
+        type: "float64"
+      speed:
+        topic: "/vehicle/speed_report"
+        type: "field"
+        type_name: "geometry_msgs/msg/Vector3Stamped"
+        field: "{field}"
+        scale: 0.2777777777777778
+    output:
+      events_log: "events.jsonl"
+"""
+
+
+@needs_core
+def test_float64_steering_and_field_path_speed_over_dds(run: Run) -> None:
+    from geometry_msgs.msg import Vector3Stamped
+    from nav_msgs.msg import Odometry
+    from rclpy.qos import qos_profile_sensor_data
+    from std_msgs.msg import Float64
+
+    from kinematic_monitor import ros_msgs as rm
+    from kinematic_monitor.samples import LocalizationSample
+
+    params = write_params(run.tmp / "p.yaml", extra=SCALAR_EXTRA.format(field="vector.z"))
+    node = run.node(params, executor="single")
+    lis = run.listen()
+    n = lis.node
+    pub_steer = n.create_publisher(Float64, "/vehicle/steer", qos_profile_sensor_data)
+    pub_speed = n.create_publisher(Vector3Stamped, "/vehicle/speed_report",
+                                   qos_profile_sensor_data)
+    pub_odom = n.create_publisher(Odometry, "/localization/odom", qos_profile_sensor_data)
+    assert lis.spin_until(lambda: pub_speed.get_subscription_count() > 0
+                          and pub_steer.get_subscription_count() > 0, 20.0,
+                          alive=lambda: node.p.poll() is None), node.output()
+    t_start = time.time()
+    k = 0
+    while time.time() - t_start < 2.5:
+        now = time.time()
+        pub_steer.publish(Float64(data=0.0))
+        sp = Vector3Stamped()
+        sp.header.stamp = rm.sec_to_stamp(now)
+        sp.vector.z = 36.0
+        pub_speed.publish(sp)
+        if k % 2 == 0:
+            x = 10.0 * (now - t_start)
+            cov = (0.0025, 0.0, 0.0, 0.0, 0.0025, 0.0, 0.0, 0.0, 1e-4)
+            pub_odom.publish(rm.odometry_msg(LocalizationSample(
+                now, x=x, y=0.0, yaw=0.0, vx=10.0, vy=0.0, yaw_rate=0.0, pose_cov=cov)))
+        k += 1
+        lis.executor.spin_once(timeout_sec=0.01)
+
+    def node_values() -> dict[str, str]:
+        st = lis.statuses("kinematic_monitor: node")
+        return {kv.key: kv.value for kv in st[-1].values} if st else {}
+
+    assert lis.spin_until(lambda: float(node_values().get("received.speed", 0)) > 20, 5.0), \
+        node_values()
+    vals = node_values()
+    assert float(vals["received.steering"]) > 20
+    # Float64 has no header: every steering sample is counted as receive-time stamped
+    assert float(vals["receive_time_stamped.steering"]) > 20
+    assert "receive_time_stamped.speed" not in vals  # Vector3Stamped carries a header
+    assert "rejected.speed" not in vals and "rejected.steering" not in vals
+    assert lis.predictions, node.output()
+    assert lis.predictions[-1].twist.twist.linear.x == pytest.approx(10.0, abs=0.5)
+
+
+@pytest.mark.parametrize(("field", "words"), [
+    ("vector.w", "no field 'w'"),
+    ("header.frame_id", "not a number"),
+])
+def test_bad_field_path_stops_start_up_naming_topic_type_and_path(
+        run: Run, field: str, words: str) -> None:
+    params = write_params(run.tmp / "p.yaml", extra=SCALAR_EXTRA.format(field=field))
+    node = run.node(params)
+    assert node.wait(timeout=20.0) == 2
+    out = node.output()
+    for part in ("/vehicle/speed_report", "geometry_msgs/msg/Vector3Stamped", field, words):
+        assert part in out, out
+
+
+def test_unknown_message_type_stops_start_up_naming_it(run: Run) -> None:
+    extra = SCALAR_EXTRA.format(field="report.speed").replace(
+        "geometry_msgs/msg/Vector3Stamped", "acme_msgs/msg/SpeedReport")
+    node = run.node(write_params(run.tmp / "p.yaml", extra=extra))
+    assert node.wait(timeout=20.0) == 2
+    assert "acme_msgs/msg/SpeedReport" in node.output() and "not installed" in node.output()
