@@ -19,7 +19,6 @@ from typing import Any, ClassVar
 import numpy as np
 
 from kinematic_monitor.sim.sensors import TOPIC_KEYS, SensorSeries
-
 from kinematic_monitor.sim.truth import TruthInterval
 
 __all__ = [
@@ -255,7 +254,8 @@ class TopicSilent(Fault):
         m = s.window(self.start, _end(self.start, self.duration))
         s.keep[m] = False
         end = _truth_end(self.start, self.duration, series.duration)
-        return [TruthInterval(self.KIND, self.start, end, {"summary": f"no {self.topic} messages"})]
+        detail = {"summary": f"no {self.topic} messages"}
+        return [TruthInterval(self.KIND, self.start, end, detail)]
 
 
 FAULT_TYPES: dict[str, type[Fault]] = {
