@@ -5,7 +5,7 @@ PYTHON ?= python3
 VENV   ?= .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.kinematic_monitor-installed
-EXTRAS := ros,tools,test
+EXTRAS := ros,tools,test,fleet
 
 # DDS traffic stays on this machine, and each run gets its own domain so that
 # parallel runs never hear each other (ROS 2 domain ids 1..101 are safe on Linux).

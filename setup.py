@@ -33,6 +33,8 @@ setup(
         "ros": ROS_WHEELS,
         # offline tools: bag reading/writing, report plots, progress bars
         "tools": ["rosbags>=0.10", "matplotlib", "tqdm"],
+        # fleet sweep: parallel replay of many bags on Dask, GeoJSON low-grip map
+        "fleet": ["dask", "distributed", "geojson"],
         "test": [
             "pytest",
             "pytest-cov",

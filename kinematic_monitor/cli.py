@@ -28,6 +28,7 @@ SUBCOMMANDS: dict[str, str] = {
     "simulate": "kinematic_monitor.sim.command",
     "node": "kinematic_monitor.node_command",
     "calibrate": "kinematic_monitor.calibrate",
+    "sweep": "kinematic_monitor.sweep",
 }
 
 
