@@ -68,7 +68,16 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the process exit code."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    words = list(sys.argv[1:] if argv is None else argv)
+    # ROS arguments pass through untouched: everything from --ros-args on is the node's
+    ros_tail: list[str] = []
+    if "--ros-args" in words:
+        cut = words.index("--ros-args")
+        words, ros_tail = words[:cut], words[cut:]
+    args = parser.parse_args(words)
+    args.ros_tail = ros_tail
+    if ros_tail and args.command != "node":
+        parser.error("--ros-args is only understood by the 'node' subcommand")
     if not getattr(args, "command", None):
         parser.print_help()
         return EXIT_USAGE

@@ -320,8 +320,13 @@ class KinematicMonitorNode(Node):
         # watermark release: a sample goes out once every live input has passed its stamp
         # (at the latest after the lag); an input silent past its timeout stops holding it
         to = cfg.timeouts
+        topics = {"joint_states": cfg.inputs.joint_states.topic,
+                  "localization": cfg.inputs.localization.topic,
+                  "imu": cfg.inputs.imu.topic, "gnss": cfg.inputs.gnss.topic}
         self.buffer = ordering.ReorderBuffer(
             lag, reset_threshold=max(1.0, 2.0 * lag + 0.5),
+            # GNSS only tags positions for maps: it never holds the other inputs back
+            streams=[name for name, topic in topics.items() if topic and name != "gnss"],
             stream_timeouts={"joint_states": to.joint_states, "localization": to.localization,
                              "imu": to.imu}, default_timeout=1.0)
         js = cfg.inputs.joint_states
@@ -561,6 +566,7 @@ class KinematicMonitorNode(Node):
             "latency_p99 [ms]": 1e3 * _percentile(lat, 0.99),
             "reorder_window [s]": self.buffer.lag,
             "late_dropped": self.buffer.late_dropped,
+            "duplicates_dropped": getattr(self.buffer, "duplicates", 0),
             "released_by_watermark": self.buffer.released_by_watermark,
             "released_by_lag": self.buffer.released_by_lag,
             "time_resets": self.buffer.resets,

@@ -37,6 +37,7 @@ def run(args: argparse.Namespace) -> int:
     extra = list(args.ros_args or [])
     if extra and extra[0] == "--":
         extra = extra[1:]
+    extra += list(getattr(args, "ros_tail", []))
     argv = ["kinematic_monitor"]
     if args.params:
         argv += ["--ros-args", "--params-file", args.params]

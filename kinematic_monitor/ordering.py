@@ -1,19 +1,49 @@
 """Reorder buffer: samples from several topics in, samples in header-stamp order out (pure).
 
-A sample is held until the newest stamp seen is at least ``lag`` [s] later, then released
-in stamp order (ties keep arrival order). A sample older than the last released one is
-late: counted and dropped. A stamp more than ``reset_threshold`` [s] *behind* the newest
-seen (a bag restarted, simulated time reset) is a backwards time jump: the buffered
-samples of the old timeline are released, a ``TimeReset`` marker follows, and the new
-timeline starts with that sample. Consumers pass the marker to ``Monitor.process``.
+Release rule (a watermark, as in stream processing): each input *stream* (one topic) is
+assumed to arrive in stamp order, as one publisher over one DDS topic does. A sample is
+released once every *active* stream has delivered a sample stamped at or after it, so no
+sample still to come can be older; or, whatever the streams do, once the newest stamp seen
+is ``lag`` [s] later (the fallback that bounds the wait when a stream is slow or silent).
+A stream is active while its last stamp is within its timeout [s] of the newest stamp.
+
+Streams are *declared* up front (``streams``, e.g. the node's configured inputs) or learnt
+when they first deliver. A declared stream not heard yet holds the watermark back until
+its timeout has passed since the first stamp seen, so its first samples are not dropped
+as late at start-up; for streams not declared, the buffer releases by the lag rule only
+until it has seen ``lag`` of stamp time. A stream that ever goes backwards in stamp is not
+trusted for the watermark again (lag rule while it is active).
+
+Look-ahead: a periodic stream's next stamp is at least one period after its last, so a
+*regular* stream is taken to have passed ``last + lookahead * g``, ``g`` the smallest stamp
+gap in its last ``GAP_WINDOW`` samples (``lookahead`` in [0, 1); 0 = the strict rule above).
+Regular: at least ``MIN_GAPS`` gaps seen and the largest at most ``REGULARITY`` times the
+smallest. A stream stamped on receipt by a busy publisher is not regular (a delayed stamp,
+a long gap, comes before the short catch-up gap), so it gets no look-ahead. Without the
+look-ahead every sample of a 1 kHz stream would wait for the next sample of the slowest
+stream (half its period on average). A stream breaking the assumptions shows up as late
+drops, which are counted.
+
+Ties keep arrival order; a sample equal (same stamp and content) to the previous one of its
+stream is a duplicate: counted (``duplicates``) and dropped. A sample older than the last
+released one is late: counted and dropped. A stamp more than ``reset_threshold`` [s]
+*behind* the newest seen (a bag restarted, simulated time reset) is a backwards time jump:
+the buffered samples of the old timeline are released, a ``TimeReset`` marker follows, and
+the new timeline starts with that sample. Consumers pass the marker to ``Monitor.process``.
 """
 
 from __future__ import annotations
 
 import heapq
 import math
+from collections import deque
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any, Protocol
+
+GAP_WINDOW = 32  # stamp gaps per stream kept for the look-ahead
+MIN_GAPS = 8  # gaps needed before a stream gets a look-ahead
+REGULARITY = 1.5  # largest / smallest gap in the window of a regular stream
 
 
 class _Stamped(Protocol):
@@ -29,53 +59,137 @@ class TimeReset:
 
 
 class ReorderBuffer:
-    """Release samples in stamp order after a lag window [s]."""
+    """Release samples in stamp order: at the streams' watermark, at the latest after ``lag``.
 
-    def __init__(self, lag: float = 0.05, reset_threshold: float = 1.0) -> None:
+    ``streams``: the stream names expected (see module docstring). ``stream_timeouts``:
+    stream name -> timeout [s] after which a silent stream no longer holds the watermark
+    back; streams not listed use ``default_timeout``. ``watermark=False``
+    gives the plain fixed-lag buffer; ``lookahead`` is explained in the module docstring.
+    """
+
+    def __init__(self, lag: float = 0.05, reset_threshold: float = 1.0, *,
+                 watermark: bool = True, streams: Iterable[str] = (),
+                 stream_timeouts: Mapping[str, float] | None = None,
+                 default_timeout: float = 0.5, lookahead: float = 0.5) -> None:
         if not (math.isfinite(lag) and lag >= 0.0):
             raise ValueError(f"reorder lag must be a finite value >= 0 s, got {lag}")
         if not (math.isfinite(reset_threshold) and reset_threshold > lag):
             raise ValueError(
                 f"reset_threshold must be finite and > lag ({lag} s), got {reset_threshold}"
             )
+        if not (isinstance(lookahead, (int, float)) and 0.0 <= lookahead < 1.0):
+            raise ValueError(f"lookahead must be in [0, 1), got {lookahead!r}")
+        timeouts = dict(stream_timeouts or {})
+        for name, t in [*timeouts.items(), ("default_timeout", default_timeout)]:
+            if not (isinstance(t, (int, float)) and math.isfinite(t) and t > 0.0):
+                raise ValueError(f"stream timeout {name!r} must be a finite value > 0 s, got {t}")
         self.lag = lag
         self.reset_threshold = reset_threshold
+        self.watermark_enabled = watermark
+        self.stream_timeouts = timeouts
+        self.default_timeout = float(default_timeout)
+        self.lookahead = float(lookahead)
+        self.streams = tuple(dict.fromkeys(streams))
         self._heap: list[tuple[float, int, Any]] = []
         self._seq = 0
         self.newest = -math.inf
+        self.first = math.inf
         self.last_released = -math.inf
         self.late_dropped = 0
+        self.duplicates = 0  # samples dropped: equal to the previous one of their stream
+        self._last_sample: dict[str, Any] = {}  # stream -> previous sample (duplicates)
         self.resets = 0
         self.invalid = 0
+        self.released_by_watermark = 0
+        self.released_by_lag = 0
+        self._last: dict[str, float] = {}  # stream -> newest stamp delivered
+        self.untrusted: set[str] = set()  # streams seen going backwards in stamp
+        self._gaps: dict[str, deque[float]] = {}  # stream -> recent stamp gaps [s]
+        self._ahead: dict[str, float] = {}  # stream -> look-ahead [s] (regular streams)
 
     def __len__(self) -> int:
         return len(self._heap)
 
-    def push(self, sample: _Stamped) -> list[Any]:
-        """Add a sample; return what can be released (samples and TimeReset markers)."""
+    def watermark(self) -> float:
+        """Stamp [s] up to which every active stream has delivered (-inf if unknown)."""
+        if not self.watermark_enabled or self.newest - self.first < self.lag:
+            return -math.inf
+        mark = math.inf
+        for name in self.streams:
+            if name not in self._last and (self.newest - self.first
+                                           <= self.stream_timeouts.get(name,
+                                                                       self.default_timeout)):
+                return -math.inf  # declared, not heard yet: wait for it (up to its timeout)
+        for name, last in self._last.items():
+            if self.newest - last > self.stream_timeouts.get(name, self.default_timeout):
+                continue  # silent: it no longer holds the others back
+            if name in self.untrusted:
+                return -math.inf
+            mark = min(mark, last + self._ahead.get(name, 0.0))
+        return mark if math.isfinite(mark) else -math.inf
+
+    def push(self, sample: _Stamped, stream: str | None = None) -> list[Any]:
+        """Add a sample from ``stream`` (default: the sample's type name); return what can be
+        released (samples and TimeReset markers) in stamp order."""
         stamp = getattr(sample, "stamp", math.nan)
         if not isinstance(stamp, (int, float)) or not math.isfinite(stamp):
             self.invalid += 1
             return []
+        stamp = float(stamp)
+        key = type(sample).__name__ if stream is None else stream
         out: list[Any] = []
         if stamp < self.newest - self.reset_threshold:
             out.extend(self.flush())
-            out.append(TimeReset(stamp=float(stamp), previous=self.newest))
+            out.append(TimeReset(stamp=stamp, previous=self.newest))
             self.resets += 1
             self.newest = -math.inf
+            self.first = math.inf
             self.last_released = -math.inf
+            self._last.clear()
+            self.untrusted.clear()
+            self._gaps.clear()
+            self._ahead.clear()
+        previous = self._last.get(key, -math.inf)
+        if stamp == previous and sample == self._last_sample.get(key):
+            self.duplicates += 1  # the same message again on one stream: dropped
+            return out
+        self._last_sample[key] = sample
+        if stamp < previous:
+            self.untrusted.add(key)
+        elif self.lookahead > 0.0 and math.isfinite(previous):
+            self._note_gap(key, stamp - previous)
+        else:
+            self._ahead.pop(key, None)
+        self._last[key] = max(previous, stamp)
+        self.newest = max(self.newest, stamp)
+        self.first = min(self.first, stamp)
         if stamp < self.last_released:
             self.late_dropped += 1
             return out
-        heapq.heappush(self._heap, (float(stamp), self._seq, sample))
+        heapq.heappush(self._heap, (stamp, self._seq, sample))
         self._seq += 1
-        self.newest = max(self.newest, float(stamp))
-        limit = self.newest - self.lag
+        by_lag = self.newest - self.lag
+        limit = max(by_lag, self.watermark())
         while self._heap and self._heap[0][0] <= limit:
             s, _, item = heapq.heappop(self._heap)
+            if s <= by_lag:
+                self.released_by_lag += 1
+            else:
+                self.released_by_watermark += 1
             self.last_released = s
             out.append(item)
         return out
+
+    def _note_gap(self, key: str, gap: float) -> None:
+        gaps = self._gaps.get(key)
+        if gaps is None:
+            gaps = self._gaps[key] = deque(maxlen=GAP_WINDOW)
+        gaps.append(gap)
+        lo, hi = min(gaps), max(gaps)
+        if len(gaps) >= MIN_GAPS and lo > 0.0 and hi <= REGULARITY * lo:
+            self._ahead[key] = self.lookahead * lo
+        else:
+            self._ahead.pop(key, None)
 
     def flush(self) -> list[Any]:
         """Release everything buffered, in stamp order."""

@@ -44,3 +44,35 @@ def test_unknown_subcommand_exits_2() -> None:
                          capture_output=True, text=True, timeout=120)
     assert out.returncode == 2
     assert "invalid choice" in out.stderr
+
+
+def test_ros_args_reach_the_node_subcommand(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    # ROS 2 command-line arguments (--ros-args ...) follow the node's own options
+    # unchanged, as rcl's argument parser expects them (ROS 2 design: ROS command line
+    # arguments); the node module is replaced here so no DDS is touched
+    import types
+
+    seen: dict[str, object] = {}
+
+    def fake_main(argv, executor=None):  # type: ignore[no-untyped-def]
+        seen["argv"] = argv
+        return 0
+
+    fake = types.ModuleType("kinematic_monitor.node")
+    fake.main = fake_main  # type: ignore[attr-defined]
+    monkeypatch.setitem(sys.modules, "kinematic_monitor.node", fake)
+    import kinematic_monitor
+
+    monkeypatch.setattr(kinematic_monitor, "node", fake, raising=False)
+    params = os.path.join(os.path.dirname(__file__), "..", "config", "kinematic_monitor.yaml")
+    rc = cli.main(["node", "--params", params, "--ros-args", "-p", "use_sim_time:=true"])
+    assert rc == 0
+    assert seen["argv"] == ["kinematic_monitor", "--ros-args", "--params-file", params,
+                            "--ros-args", "-p", "use_sim_time:=true"]
+
+
+def test_ros_args_refused_for_other_subcommands() -> None:
+    out = subprocess.run([sys.executable, "-m", "kinematic_monitor", "simulate", "--list",
+                          "--ros-args"], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 2
+    assert "--ros-args is only understood" in out.stderr
