@@ -40,7 +40,7 @@ test: $(STAMP) lint typecheck
 	$(PY) -m coverage report --include='$(CORE)' --fail-under=90
 
 demo: $(STAMP)
-	$(PY) -m kinematic_monitor demo
+	$(PY) -m kinematic_monitor demo --out build/demo --force
 
 bench: $(STAMP)
 	@for b in bench/*.py; do echo "== $$b"; $(PY) $$b || exit 1; done
