@@ -127,9 +127,10 @@ def yaw_rate_sigma(
 class LevelTracker:
     """Turns a per-decision candidate level into a level with hysteresis.
 
-    A level is entered when the candidate has been at least that level for
-    ``min_duration`` [s]; the alarm clears when the candidate has been OK for
-    ``clear_duration`` [s]. ``update`` returns 'start', 'raise', 'end' or None.
+    A level is entered when the deviation has lasted ``min_duration`` [s]: counted from
+    the estimated onset passed to ``update`` (e.g. the CUSUM change-point) when that is
+    earlier than the first decision at the level; the alarm clears when the candidate has
+    been OK for ``clear_duration`` [s]. ``update`` returns 'start', 'raise', 'end' or None.
     """
 
     def __init__(self, min_duration: float, clear_duration: float) -> None:
@@ -159,7 +160,12 @@ class LevelTracker:
         reached = OK
         for lvl in (WARN, ERROR):
             since = self._above_since.get(lvl)
-            if since is not None and stamp - since >= self.min_duration - 1e-9:
+            if since is not None and math.isfinite(onset):
+                # the deviation has lasted since its estimated onset (e.g. the CUSUM
+                # change-point), not only since the statistic crossed the threshold
+                since = min(since, onset)
+            # 1e-6 s slack: stamps near 1.8e9 s carry ~2.4e-7 s of float rounding
+            if since is not None and stamp - since >= self.min_duration - 1e-6:
                 reached = lvl
         if self.level == OK:
             if reached > OK:
@@ -180,7 +186,7 @@ class LevelTracker:
             return None
         if not math.isfinite(self._below_since):
             self._below_since = stamp
-        if stamp - self._below_since >= self.clear_duration - 1e-9:
+        if stamp - self._below_since >= self.clear_duration - 1e-6:
             self.level = OK
             end = end_hint if math.isfinite(end_hint) else self._below_since
             self.end = max(end, self.start)
@@ -228,8 +234,12 @@ class CusumCheck:
         self.side = 0
         self._last_excess = math.nan
 
-    def update(self, z: float, stamp: float) -> str | None:
-        """Feed one standardised residual z [σ] at ``stamp`` [s]; returns a transition."""
+    def update(self, z: float, stamp: float, span: float = 0.0) -> str | None:
+        """Feed one standardised residual z [σ] at ``stamp`` [s]; returns a transition.
+
+        ``span`` [s]: z summarises data from [stamp − span, stamp) (a block mean), so a
+        change first seen in it began no earlier than stamp − span: the onset estimate.
+        """
         res = self.cusum.update(z, stamp)
         self.statistic, self.side, self.last_z = res.statistic, res.side, z
         if math.isfinite(z) and res.side != 0 and res.side * z > self.k:
@@ -240,7 +250,8 @@ class CusumCheck:
             candidate = WARN
         else:
             candidate = OK
-        return self.tracker.update(candidate, stamp, res.onset, self._last_excess)
+        onset = res.onset - span if math.isfinite(res.onset) else res.onset
+        return self.tracker.update(candidate, stamp, onset, self._last_excess)
 
 
 class ThresholdCheck:
@@ -268,14 +279,18 @@ class ThresholdCheck:
         self._onset = math.nan
         self._last_above = math.nan
 
-    def update(self, value: float, stamp: float) -> str | None:
-        """Feed a magnitude at ``stamp`` [s]; non-finite values count as OK."""
+    def update(self, value: float, stamp: float, span: float = 0.0) -> str | None:
+        """Feed a magnitude at ``stamp`` [s]; non-finite values count as OK.
+
+        ``span`` [s]: the value summarises data from [stamp − span, stamp) (a block mean),
+        so a deviation first seen in it began no earlier than stamp − span.
+        """
         self.value = value
         mag = abs(value) if math.isfinite(value) else 0.0
         candidate = ERROR if mag >= self.error else WARN if mag >= self.warn else OK
         if candidate > OK:
             if not math.isfinite(self._onset):
-                self._onset = stamp
+                self._onset = stamp - span
             self._last_above = stamp
         elif self.tracker.level == OK:
             self._onset = math.nan

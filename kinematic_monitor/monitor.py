@@ -17,11 +17,15 @@ Parameters read with a default when the parameter schema lacks them (extension
 candidates): ``checks.decision_period`` [s] 0.1, ``checks.min_shift`` [σ] 1.0,
 ``checks.model_tolerance`` [-] 0.05 (relative error allowed to the kinematic model),
 ``checks.yaw_rate_tolerance`` [rad/s] 0.01, ``checks.sideslip_tolerance`` [rad] 0.01,
-``checks.understeer_tolerance`` [rad/(m/s²)] 0.005 (linear-range understeer gradient the
-yaw-rate check tolerates beyond ``vehicle.understeer_gradient``; ≈ 2.8 deg/g),
+``checks.understeer_tolerance`` [rad/(m/s²)] 0.0015 (linear-range understeer gradient the
+yaw-rate check tolerates beyond ``vehicle.understeer_gradient``; ≈ 0.84 deg/g, an
+uncertainty of the calibrated gradient; common practice, no source),
 ``checks.sideslip_gradient_tolerance`` [rad/(m/s²)] 0.015 (linear-range sideslip change
 per lateral acceleration tolerated; common practice, no source),
-``checks.wheel_scale_tolerance`` [-] 0.01,
+``checks.wheel_scale_tolerance`` [-] 0.01, ``checks.yaw_lag`` [s] 0.2 (yaw-rate response
+lag of the vehicle tolerated while the kinematic yaw rate changes; common practice, no
+source), ``checks.heading_time_constant`` [s] 5.0 and ``checks.heading_tolerance``
+[rad] 0.005 (localisation yaw vs IMU-integrated heading; common practice, no source),
 ``vehicle.understeer_gradient`` [rad/(m/s²)] 0.0, ``inputs.localization.reference_x``
 [m] 0.0 (localisation child frame ahead of the CG; −l_r for a rear-axle base_link).
 """
@@ -62,10 +66,11 @@ from kinematic_monitor.stats import (
     cusum_threshold,
     mean_nis_bounds,
 )
-from kinematic_monitor.triage import Evidence, classify
+from kinematic_monitor.triage import Evidence, Verdict, classify
 
 PREFIX = "kinematic_monitor: "
-CUSUM_CHANNELS = ("yaw_rate", "sideslip", "drift", "wheel_scale")
+CUSUM_CHANNELS = ("yaw_rate", "sideslip", "drift", "wheel_scale", "heading")
+BLOCK_CHANNELS = ("yaw_rate", "sideslip", "wheel_scale", "heading")
 STATUS_NAMES = {
     "yaw_rate": "yaw rate",
     "sideslip": "sideslip",
@@ -74,10 +79,19 @@ STATUS_NAMES = {
     "wheel_scale": "wheel speed scale",
     "localization": "localization jump",
     "nis": "filter consistency",
+    "heading": "localization heading",
     "grip": "grip",
 }
 INPUTS = ("joint_states", "localization", "imu")
-UNITS = {"yaw_rate": "rad/s", "sideslip": "rad", "wheel_scale": "-"}
+#: decisions taken through a gap without samples before skipping to its end (300 s at the
+#: default period: every input is stale long before; bounds the time a garbage future stamp
+#: or a clock jump costs)
+MAX_GAP_DECISIONS = 3000
+MIN_POSITION_STD = 1e-4  # [m] smallest localisation position std used
+MIN_YAW_STD = 1e-5  # [rad] smallest localisation yaw std used
+CALIBRATION_MAX_AX = 1.0  # m/s² (≈ 0.1 g): above it the wheel-scale check pauses (common
+# practice, no source): drive and brake slip would look like a wheel-radius error
+UNITS = {"yaw_rate": "rad/s", "sideslip": "rad", "wheel_scale": "-", "heading": "rad"}
 
 
 def _opt(cfg: Any, name: str, default: Any) -> Any:
@@ -184,11 +198,14 @@ class Monitor:
         self.period = float(_opt(config, "checks.decision_period", 0.1))
         self.min_shift = float(_opt(config, "checks.min_shift", 1.0))
         self.model_rel = float(_opt(config, "checks.model_tolerance", 0.05))
-        self.us_tol = float(_opt(config, "checks.understeer_tolerance", 0.005))
+        self.us_tol = float(_opt(config, "checks.understeer_tolerance", 0.0015))
         self.beta_ay_tol = float(_opt(config, "checks.sideslip_gradient_tolerance", 0.015))
         self.yaw_tol = float(_opt(config, "checks.yaw_rate_tolerance", 0.01))
         self.beta_tol = float(_opt(config, "checks.sideslip_tolerance", 0.01))
         self.scale_tol = float(_opt(config, "checks.wheel_scale_tolerance", 0.01))
+        self.yaw_lag = float(_opt(config, "checks.yaw_lag", 0.2))
+        self.heading_tau = max(float(_opt(config, "checks.heading_time_constant", 5.0)), 0.1)
+        self.heading_tol = float(_opt(config, "checks.heading_tolerance", 0.005))
         self.understeer = float(_opt(config, "vehicle.understeer_gradient", 0.0))
         self.ref_x = float(_opt(config, "inputs.localization.reference_x", 0.0))
         self.friction = float(c.friction_assumed)
@@ -244,6 +261,10 @@ class Monitor:
         self.last_seen: dict[str, float] = {k: math.nan for k in INPUTS}
         self._delta = math.nan  # bicycle steer, corrected [rad]
         self._delta_meas = math.nan  # bicycle steer as measured [rad]
+        # stamps of the latest steering and speed [s]: a sample carrying only one of them
+        # (separate steering and speed topics) reuses the other while it is fresh
+        self._steer_t = math.nan
+        self._speed_t = math.nan
         self._speed = math.nan  # CG speed from rear wheels [m/s]
         self._wheels: tuple[float, float, float, float] | None = None
         self._steer_pair: tuple[float, float] = (math.nan, math.nan)
@@ -254,10 +275,21 @@ class Monitor:
         self._meas_rate = math.nan
         self._ay = math.nan
         self._n_chassis_block = 0
-        self._acc: dict[str, _Acc] = {ch: _Acc() for ch in ("yaw_rate", "sideslip", "wheel_scale")}
+        self._acc: dict[str, _Acc] = {ch: _Acc() for ch in BLOCK_CHANNELS}
+        # heading check: IMU-integrated heading [rad], its last stamp, and the slowly
+        # tracked offset between localisation yaw and that heading [rad]
+        self._imu_heading = 0.0
+        self._heading_t = math.nan
+        self._heading_offset = math.nan
+        self._heading_prev_t = math.nan
+        self._heading_n = 0
         self._slip_acc: dict[str, list[float]] = {"front": [], "rear": []}
         self._kin_rate = math.nan
         self._yaw_allow = 0.0  # latest yaw-rate allowance [rad/s]
+        self._kin_ref = (math.nan, math.nan)  # (stamp, kinematic yaw rate) for the slope
+        self._lag_allow = 0.0  # transient allowance [rad/s]
+        self._ground = (math.nan, math.nan)  # (stamp, localisation CG speed [m/s])
+        self._rear_slipping = False  # rear wheels' slip ratio beyond checks.slip_ratio_warn
         self._beta_allow = 0.0  # latest sideslip allowance [rad]
         self._yaw_rate_loc = math.nan
         self._yaw_rate_imu = math.nan
@@ -370,6 +402,8 @@ class Monitor:
     # ------------------------------------------------------------------ chassis
     def _on_chassis(self, s: ChassisSample) -> None:
         p = self.p
+        hold = self.timeouts["joint_states"]
+        got_steer = True
         if _fin(s.steer):
             delta_m = s.steer
         elif _fin(s.steer_left, s.steer_right):
@@ -378,36 +412,76 @@ class Monitor:
             except ValueError:
                 self.counters["rejected_steer_range"] += 1
                 return
-        else:
-            self.counters["rejected_nan"] += 1
-            return
-        if abs(delta_m) > p.max_road_wheel_angle:
+        else:  # speed-only sample: reuse the latest steering while fresh
+            got_steer = False
+            fresh = _fin(self._steer_t) and s.stamp - self._steer_t <= hold
+            delta_m = self._delta_meas if fresh else math.nan
+        if got_steer and abs(delta_m) > p.max_road_wheel_angle:
             self.counters["rejected_steer_range"] += 1
             return
         delta = model.corrected_steer(delta_m, p)
         wheels = (s.wheel_front_left, s.wheel_front_right, s.wheel_rear_left, s.wheel_rear_right)
-        if _fin(wheels[2], wheels[3]):
+        got_speed = True
+        if _fin(wheels[2], wheels[3]) and _fin(delta):
             speed = model.cg_speed_from_rear_wheels(wheels[2], wheels[3], delta, p)
         elif _fin(s.speed):
             speed = s.speed
-        else:
+        else:  # steering-only sample: reuse the latest speed while fresh
+            got_speed = False
+            fresh = _fin(self._speed_t) and s.stamp - self._speed_t <= hold
+            speed = self._speed if fresh else math.nan
+        if not (got_steer or got_speed):
             self.counters["rejected_nan"] += 1
+            return
+        if not _fin(delta, speed):  # half of the inputs so far: keep it for the other half
+            if got_steer:
+                self._delta, self._delta_meas, self._steer_t = delta, delta_m, s.stamp
+            if got_speed:
+                self._speed, self._speed_t = speed, s.stamp
+            self.counters["chassis_partial"] = self.counters.get("chassis_partial", 0) + 1
             return
         self._dr_advance(s.stamp)
         self._delta, self._speed = delta, speed
         self._delta_meas = delta_m
-        self._wheels = wheels if all(math.isfinite(w) for w in wheels) else None
-        self._steer_pair = (s.steer_left, s.steer_right)
+        if got_steer:
+            self._steer_t = s.stamp
+            self._steer_pair = (s.steer_left, s.steer_right)
+        if got_speed:
+            self._speed_t = s.stamp
+            self._wheels = wheels if all(math.isfinite(w) for w in wheels) else None
         self._n_chassis_block += 1
         self._dr_nchassis += 1
         self.last_seen["joint_states"] = s.stamp
         self._kin_rate = self._kinematic_rate()
+        self._track_kinematic_change(s.stamp)
         if self._ekf is not None:
             try:
                 self._ekf.predict(s.stamp, delta_m, speed)
             except (ValueError, RuntimeError):
                 self.counters["filter_errors"] += 1
                 self._ekf = None
+
+    def _track_kinematic_change(self, stamp: float) -> None:
+        """Transient allowance [rad/s]: yaw_lag·|d(kinematic yaw rate)/dt|, held and decayed.
+
+        A real vehicle's yaw rate follows the kinematic (steady-state) one with a lag of
+        about ``checks.yaw_lag`` [s], so while the kinematic rate changes the measured one
+        trails it by about yaw_lag·|dψ̇/dt|; that is not slip. The slope is taken over
+        ≥ 0.05 s (steering noise), the allowance decays with time constant yaw_lag.
+        """
+        kin = self._kin_rate
+        if not _fin(kin) or self.yaw_lag <= 0.0:
+            return
+        t0, k0 = self._kin_ref
+        if not _fin(t0) or stamp < t0:
+            self._kin_ref = (stamp, kin)
+            return
+        dt = stamp - t0
+        if dt < 0.05:
+            return
+        decayed = self._lag_allow * math.exp(-dt / self.yaw_lag)
+        self._lag_allow = max(self.yaw_lag * abs(kin - k0) / dt, decayed)
+        self._kin_ref = (stamp, kin)
 
     def _kinematic_rate(self) -> float:
         """Kinematic yaw rate [rad/s] from the latest inputs (with understeer allowance)."""
@@ -416,16 +490,40 @@ class Monitor:
         delta = self._delta
         if self.understeer != 0.0 and _fin(self._ay):
             delta -= self.understeer * self._ay
-        return model.yaw_rate(self._speed, delta, self.p)
+        return model.yaw_rate(self._kin_speed(), delta, self.p)
 
     def _have_chassis(self) -> bool:
         return _fin(self._delta, self._speed)
 
+    def _ground_speed(self) -> float:
+        """CG speed over ground [m/s] from the localisation twist, NaN when not fresh."""
+        t, v = self._ground
+        fresh = _fin(t, v) and self.now - t <= self.timeouts["localization"]
+        return v if fresh else math.nan
+
     def _moving(self) -> bool:
-        return self._have_chassis() and abs(self._speed) >= self.min_speed
+        """Moving: wheel-speed or (locked wheels) localisation speed >= checks.min_speed."""
+        if not self._have_chassis():
+            return False
+        g = self._ground_speed()
+        return abs(self._speed) >= self.min_speed or (_fin(g) and abs(g) >= self.min_speed)
+
+    def _kin_speed(self) -> float:
+        """Speed [m/s] for the kinematic prediction: the rear wheels' CG speed, or the
+        localisation speed while the rear wheels spin or lock (their speed is not the
+        vehicle's then)."""
+        g = self._ground_speed()
+        if self._rear_slipping and _fin(g):
+            return g
+        return self._speed
 
     # ------------------------------------------------------------------ IMU
     def _on_imu(self, s: ImuSample) -> None:
+        if _fin(self._heading_t) and 0.0 < s.stamp - self._heading_t <= self.timeouts["imu"]:
+            self._imu_heading += s.yaw_rate * (s.stamp - self._heading_t)
+        elif _fin(self._heading_t) and s.stamp > self._heading_t:
+            self._heading_offset = math.nan  # gap: the integrated heading is lost
+        self._heading_t = s.stamp
         if self._dr is not None and _fin(self._imu_t) and s.stamp > self._dr_anchor_t:
             t0 = max(self._imu_t, self._dr_anchor_t)
             self._dr_imu_dyaw += s.yaw_rate * (s.stamp - t0)
@@ -450,7 +548,7 @@ class Monitor:
         noise = yaw_rate_sigma(self._speed, self._delta, self.p.wheelbase, meas_std,
                                self.noise.steering_angle_std, sig_v, kin, 0.0)
         ay = abs(self._ay) if _fin(self._ay) else abs(meas * self._speed)
-        allow = (self.model_rel * abs(kin) + self.yaw_tol
+        allow = (self.model_rel * abs(kin) + self.yaw_tol + self._lag_allow
                  + abs(self._speed) / self.p.wheelbase * self.us_tol * ay)
         self._yaw_allow = allow
         self._acc["yaw_rate"].add(meas - kin, noise**2, allow, self._moving())
@@ -465,7 +563,9 @@ class Monitor:
                 sp = math.sqrt(0.5 * (vx + vy))
             if vyaw > 0.0:
                 sy = math.sqrt(vyaw)
-        return sp, sy
+        # floors far below any real localisation: a claimed near-zero variance would
+        # collapse the filter covariance to singular (common practice, no source)
+        return max(sp, MIN_POSITION_STD), max(sy, MIN_YAW_STD)
 
     def _cg_pose(self, s: LocalizationSample) -> tuple[float, float, float]:
         c, sn = math.cos(s.yaw), math.sin(s.yaw)
@@ -532,6 +632,9 @@ class Monitor:
         vy_prev = s.vy - self.ref_x * (meas_rate if _fin(meas_rate) else 0.0)
         self._loc_prev = (s.stamp, pose[0], pose[1], pose[2], sp, s.vx, vy_prev)
         self._loc = s
+        self._heading_sample(s.stamp, s.yaw, sy)
+        if _fin(s.vx, s.vy):
+            self._ground = (s.stamp, math.copysign(math.hypot(s.vx, s.vy), s.vx))
         # --- yaw rate from localisation when no IMU
         if _fin(meas_rate) and self._have_chassis() and not self._imu_fresh():
             sig = self.noise.localization_velocity_std / max(self.p.track_width, 1.0)
@@ -560,6 +663,45 @@ class Monitor:
         # --- filter
         self._filter_on_loc(s, jumped)
 
+    def _heading_sample(self, stamp: float, yaw: float, sy: float) -> None:
+        """Localisation yaw vs the IMU-integrated heading (a heading drift or yaw jump of the
+        localisation; immune to tyre slip, which both sensors see alike).
+
+        e = wrap(yaw − ∫ψ̇_IMU − offset); the offset follows e with time constant
+        ``checks.heading_time_constant`` τ [s] (absorbs a constant offset and gyro bias: a
+        bias b leaves b·τ, covered by ``checks.heading_tolerance`` [rad]). A ramp (drift)
+        keeps e growing; a step is absorbed after a few τ.
+        """
+        if not self._imu_fresh() or not _fin(yaw, self._heading_t) or \
+                stamp - self._heading_t > self.timeouts["imu"]:
+            self._heading_offset = math.nan
+            return
+        # IMU heading extrapolated to the localisation stamp with the latest rate
+        head = self._imu_heading + self._yaw_rate_imu * (stamp - self._heading_t)
+        diff = yaw - head
+        if not _fin(self._heading_offset):
+            self._heading_offset = diff
+            self._heading_prev_t = stamp
+            self._heading_n = 1
+            return
+        e = angle_diff(diff, self._heading_offset)
+        dt = max(stamp - self._heading_prev_t, 0.0)
+        self._heading_prev_t = stamp
+        self._heading_n += 1
+        # running mean at first, then an exponential average with time constant τ
+        n_ema = max(2.0 * self.heading_tau / max(dt, 1e-3), 1.0)
+        gain = max(min(dt / self.heading_tau, 1.0), 1.0 / self._heading_n)
+        self._heading_offset += gain * e
+        self._figures["heading"].update({"heading_error [rad]": e})
+        if self._heading_n < 10:  # offset still settling
+            return
+        # e = noise of this yaw minus the offset's own error (averaged over ~n samples);
+        # the integrated IMU noise grows as σ·sqrt(dt_imu·τ) (dt_imu ≈ 0.01 s assumed)
+        n_off = min(float(self._heading_n), n_ema)
+        noise = sy**2 * (1.0 + 1.0 / n_off) + (self.noise.imu_yaw_rate_std**2) * 0.01 * (
+            self.heading_tau)
+        self._acc["heading"].add(e, noise, self.heading_tol, self._moving())
+
     @functools.lru_cache(maxsize=64)  # noqa: B019 (one monitor per process, few rates)
     def _jump_thresholds(self, loc_rate_hz: int) -> tuple[float, float]:
         """chi-square(3) WARN/ERROR bounds per localisation update at ``loc_rate_hz``."""
@@ -569,6 +711,7 @@ class Monitor:
 
     def _slip_sample(self, vx: float, vy: float, rate: float, moving: bool) -> None:
         if self._wheels is None or not moving:
+            self._rear_slipping = False
             return
         p = self.p
         r_e = p.effective_wheel_radius
@@ -584,6 +727,7 @@ class Monitor:
         g_front = 0.5 * (g_fl + g_fr)
         k_front = slip_ratio(0.5 * r_e * (fl + fr), g_front, self.min_speed)
         k_rear = slip_ratio(0.5 * r_e * (rl + rr), vx, self.min_speed)
+        self._rear_slipping = abs(k_rear) >= self.slip_warn
         self._slip_acc["front"].append(k_front)
         self._slip_acc["rear"].append(k_rear)
         # calibration: the smaller of two same-sign axle slips (free rolling axle)
@@ -593,14 +737,19 @@ class Monitor:
         sw = self.noise.wheel_speed_std * r_e
         sv = self.noise.localization_velocity_std
         noise = (sw**2 / 2.0 + sv**2) / max(abs(vx), self.min_speed) ** 2
-        self._acc["wheel_scale"].add(k_cal, noise, self.scale_tol, moving)
+        # a wheel-radius error shows at steady speed; braking and driving slip both axles
+        # alike (ISO 8855 slip ∝ force), so hard braking or acceleration is left out
+        imu = self._imu
+        ax = imu.ax if imu is not None and self._imu_fresh() else math.nan
+        steady = not (_fin(ax) and abs(ax) > CALIBRATION_MAX_AX)
+        self._acc["wheel_scale"].add(k_cal, noise, self.scale_tol, moving and steady)
 
     def _drift_on_loc(self, stamp: float, pose: tuple[float, float, float], sp: float,
                       sy: float, jumped: bool) -> None:
         if self._dr is None or jumped or not self._have_chassis():
             self._anchor(stamp, pose)
             return
-        if stamp - self._dr_anchor_t < self.horizon - 1e-9:
+        if stamp - self._dr_anchor_t < self.horizon - 1e-6:
             return
         self._dr_advance(stamp)
         lon, lat, dyaw = drift_error(self._dr, pose)
@@ -696,11 +845,11 @@ class Monitor:
     def _decide_until(self, stamp: float) -> None:
         """Take every decision whose grid time is <= ``stamp`` (data before it only)."""
         guard = 0
-        while self._next_decision <= stamp and guard < 100000:
+        while self._next_decision <= stamp and guard < MAX_GAP_DECISIONS:
             self._decide(self._next_decision)
             self._next_decision += self.period
             guard += 1
-        if guard >= 100000:  # a huge gap: skip ahead on the grid
+        if guard >= MAX_GAP_DECISIONS:  # a huge gap: levels are held; skip ahead on the grid
             self._grid_k = math.floor(stamp / self.period) + 1
             self._next_decision = self._grid_k * self.period
 
@@ -708,14 +857,14 @@ class Monitor:
         self._check_inputs(t)
         n_ch = max(1, self._n_chassis_block)
         self._active = self._moving()
-        for ch in ("yaw_rate", "sideslip", "wheel_scale"):
+        for ch in BLOCK_CHANNELS:
             acc = self._acc[ch]
             mean, z = acc.z(n_ch)
             chk = self._cusum[ch]
             if acc.n and acc.all_active and self._active and _fin(z):
                 self._figures[ch].update({f"block_mean_residual [{UNITS[ch]}]": mean,
                                           "excess [sigma]": z})
-                out = chk.update(z, t)
+                out = chk.update(z, t, span=self.period)
                 self._handle(ch, out, t)
             elif not self._active or (acc.n and not acc.all_active):
                 self._deactivate(ch, t)
@@ -732,7 +881,7 @@ class Monitor:
             worst = kf if abs(kf) >= abs(kr) else kr
             self._figures["slip_ratio"].update({"slip_ratio_front [-]": kf,
                                                 "slip_ratio_rear [-]": kr})
-            out = self._slip.update(worst, t)
+            out = self._slip.update(worst, t, span=self.period)
             self._handle("slip_ratio", out, t)
         elif not self._active:
             if self._slip.level:
@@ -829,6 +978,10 @@ class Monitor:
         tracker = self._tracker(channel)
         if out == "start":
             verdict = classify(self._evidence(channel, extra))
+            if channel == "drift" and "localization_fault" in self._slots:
+                # drift compares dead reckoning with the localisation: while a localisation
+                # fault is open, a drift alarm is that fault's consequence
+                verdict = Verdict("localization_fault", "drift", verdict.summary)
             if verdict.note:
                 self.counters["notes"] += 1
                 self.notes.append((t, verdict.summary))
@@ -957,6 +1110,7 @@ class Monitor:
                  "wheel_scale": {"joint_states", "localization"},
                  "localization": {"localization"},
                  "nis": {"localization"},
+                 "heading": {"localization", "imu"},
                  "grip": set()}
         for ch, label in STATUS_NAMES.items():
             figs = dict(self._figures.get(ch, {}))

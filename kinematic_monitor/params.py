@@ -303,6 +303,9 @@ SPECS: tuple[ParamSpec, ...] = (
             0.0, 1.0, lo_inc=False, runtime=True),
     _double("checks.slip_ratio_error", 0.2, "-", "Wheel slip ratio that raises ERROR.",
             0.0, 1.0, lo_inc=False, runtime=True),
+    _double("checks.yaw_lag", 0.2, "s", "Yaw-response lag tolerated.", 0.0, 2.0, runtime=True),
+    _double("checks.heading_time_constant", 5.0, "s", "Heading offset τ.", 0.1, 600, runtime=True),
+    _double("checks.heading_tolerance", 0.005, "rad", "Heading error ok.", 0.0, 1.0, runtime=True),
     # timeouts: an input older than this is reported stale
     _double("timeouts.joint_states", 0.5, "s", "Joint states older than this are stale.",
             0.0, 60.0, lo_inc=False, runtime=True),

@@ -4,8 +4,10 @@ Rules, in order (σ = standard deviation of the yaw-rate comparison in question)
 
 1. ``input`` channel → ``input_stale``.
 2. ``slip_ratio`` channel → ``longitudinal_slip`` (spin if κ > 0, lock/skid if κ < 0).
-3. ``wheel_scale`` channel (both axles show the same small slip) → ``calibration_bias``.
-4. ``localization`` / ``nis`` channel (pose jump, inconsistent updates) →
+3. ``wheel_scale`` channel (both axles show the same small slip) → ``calibration_bias``;
+   beyond ``CALIBRATION_MAX_SCALE`` (5 %) both axles spin or lock → ``longitudinal_slip``.
+4. ``heading`` channel (localisation yaw drifts against the IMU-integrated heading) →
+   ``localization_fault``; ``localization`` / ``nis`` channel (pose jump, inconsistent updates) →
    ``localization_fault``; when the localisation declared the jump (covariance collapse
    or reset message) it is a *note* (no ERROR).
 5. yaw-rate / sideslip / drift channels:
@@ -70,6 +72,8 @@ CALIBRATION_MAX_AY = 0.15 * GRAVITY  # m/s²; "low lateral acceleration" (common
 CALIBRATION_MAX_STEER = 0.05  # rad (≈ 2.9°): larger steering-equivalent residuals are not
 # taken for a calibration error (common practice, no source)
 CALIBRATION_MIN_RATIO = 0.5  # residual at least half the steering angle: shows when straight
+CALIBRATION_MAX_SCALE = 0.05  # [-] a wheel-radius error beyond 5 % is not a calibration
+# matter (tyre pressure and wear change R_e by a few percent; common practice, no source)
 AGREE_SIGMAS = 3.0  # two measurements agree within 3σ (common practice, no source)
 
 
@@ -97,11 +101,20 @@ def classify(ev: Evidence) -> Verdict:
         )
     if ch == "wheel_scale":
         k = _nanmean(ev.slip_front, ev.slip_rear)
+        if _fin(k) and abs(k) > CALIBRATION_MAX_SCALE:
+            # both axles far off the ground speed: the wheels spin or lock together
+            what = "wheel spin" if k > 0 else "wheel lock"
+            return Verdict("longitudinal_slip", what,
+                           f"{what} on both axles: slip ratio {k:+.2f}")
         return Verdict(
             "calibration_bias", "wheel_radius",
             f"wheel speeds {abs(k) * 100:.1f} % {'above' if k > 0 else 'below'} ground speed "
             "on both axles: check wheel radius (run kinematic-monitor calibrate)",
         )
+    if ch == "heading":
+        return Verdict("localization_fault", "heading",
+                       ev.detail or "localisation heading drifts against the IMU-integrated "
+                       "heading")
     if ch in ("localization", "nis"):
         if ev.loc_declared_reset:
             return Verdict("localization_fault", "relocalization",

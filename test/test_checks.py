@@ -126,3 +126,30 @@ def test_threshold_check() -> None:
     assert chk.update(0.3, 0.2) == "raise"
     chk.update(math.nan, 0.3)
     assert chk.update(0.0, 0.6) == "end" and chk.tracker.end == pytest.approx(0.2)
+
+
+def test_persistence_counts_from_the_estimated_onset_at_epoch_scale_stamps() -> None:
+    # the deviation began at the onset estimate (CUSUM change-point, Page 1954), so
+    # min_duration is counted from there; stamps near 1.8e9 s carry ~2.4e-7 s rounding
+    t0 = 1_800_000_000.0
+    tr = LevelTracker(min_duration=0.2, clear_duration=1.0)
+    assert tr.update(WARN, t0 + 0.1, onset=t0 + 0.0) is None  # lasted 0.1 s
+    assert tr.update(WARN, t0 + 0.2, onset=t0 + 0.0) == "start"
+    assert tr.start == t0 and tr.detected_at == t0 + 0.2
+    # (t0 + 0.6) − (t0 + 0.4) evaluates to 0.1999998 s in binary floating point
+    plain = LevelTracker(min_duration=0.2, clear_duration=1.0)
+    assert (t0 + 0.1 * 6) - (t0 + 0.1 * 4) < 0.2 - 1e-9
+    for k in (4, 5, 6):
+        out = plain.update(WARN, t0 + 0.1 * k)
+    assert out == "start"
+
+
+def test_cusum_block_span_moves_the_onset_to_the_block_start() -> None:
+    chk = CusumCheck(k=0.5, h_warn=5.0, h_error=10.0, min_duration=0.2, clear_duration=0.5)
+    for t in range(10):
+        chk.update(0.0, t * 0.1, span=0.1)
+    # a large shift first seen in the block [0.9, 1.0): the change began at 0.9 at the
+    # earliest, so 0.2 s of deviation have passed at the decision 1.1
+    assert chk.update(20.0, 1.0, span=0.1) is None
+    assert chk.update(20.0, 1.1, span=0.1) == "start"
+    assert chk.tracker.start == pytest.approx(0.9)

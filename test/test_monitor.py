@@ -422,3 +422,53 @@ def test_hostile_but_finite_samples_never_raise() -> None:
     for st in m.statuses():
         assert st.level in (0, 1, 2, 3)
     json.dumps(events_to_json("x", m.events), allow_nan=False)
+
+
+# ------------------------------------------------------ steering and speed on separate topics
+def _split_chassis(samples: list[object], speed_lag: float = 0.004) -> list[object]:
+    """Each JointState-like sample -> a steer-only sample (bicycle angle) and, ``speed_lag``
+    s later, a speed-only sample (CG speed), as from Float64 and TwistStamped topics."""
+    p = model.VehicleParams(2.70, 1.35, 0.31, 1.55)
+    out: list[object] = []
+    for s in samples:
+        if isinstance(s, ChassisSample):
+            d = model.ackermann_to_bicycle(s.steer_left, s.steer_right, p)
+            v = model.cg_speed_from_rear_wheels(s.wheel_rear_left, s.wheel_rear_right, d, p)
+            out.append(ChassisSample(s.stamp, steer=d))
+            out.append(ChassisSample(s.stamp + speed_lag, speed=v))
+        else:
+            out.append(s)
+    out.sort(key=lambda s: s.stamp)  # type: ignore[attr-defined]
+    return out
+
+
+def test_separate_steer_only_and_speed_only_samples_drive_the_monitor() -> None:
+    # steady circle, delta = 0.05 rad at 10 m/s; kinematic bicycle (Rajamani 2012, CG form):
+    # yaw rate = v cos(beta) tan(delta) / L, beta = atan(l_r tan(delta) / L)
+    delta, v = 0.05, 10.0
+    samples = _split_chassis(drive(8.0, lambda t: v, lambda t: delta, seed=3))
+    m = run(samples)
+    assert m.counters["rejected_nan"] == 0
+    assert m.counters.get("chassis_partial", 0) == 1  # only the very first steer-only sample
+    pred = m.prediction()
+    assert pred is not None
+    beta = math.atan(1.35 * math.tan(delta) / 2.70)
+    expected = v * math.cos(beta) * math.tan(delta) / 2.70
+    assert pred.yaw_rate == pytest.approx(expected, rel=0.05)
+    assert pred.v == pytest.approx(v, rel=0.02)
+    m.flush(samples[-1].stamp)  # type: ignore[attr-defined]
+    assert m.events == [], [e.to_dict() for e in m.events]
+
+
+def test_held_steering_expires_after_the_joint_states_timeout() -> None:
+    # steering stops after 1 s; speed-only samples may reuse it for timeouts.joint_states
+    # (0.5 s), after which they only update the speed (counted as partial)
+    t0 = 1000.0
+    m = Monitor(config())
+    m.process(ChassisSample(t0, steer=0.02))
+    for k in range(1, 301):  # 3 s of speed at 100 Hz
+        m.process(ChassisSample(t0 + 0.01 * k + 0.005, speed=5.0))
+    # speed samples up to t0 + 0.5 s (49 of them) complete a chassis sample; the rest are
+    # partial, plus the lone steering sample at the start
+    assert m.counters["chassis_partial"] == 1 + (300 - 49)
+    assert m.counters["rejected_nan"] == 0

@@ -525,6 +525,44 @@ def launch_on_snow(**kw: object) -> Scenario:
     return replace(sc, name="launch_on_snow")
 
 
+def gentle_loop(
+    v_low: float = 6.0, v_high: float = 8.8, cycle: float = 45.0, **kw: object
+) -> Scenario:
+    """The handling loop driven gently, the false-alarm reference drive: the speed swings
+    between ``v_low`` and ``v_high`` [m/s] over ``cycle`` [s] (time keyed, so it does not
+    drift onto the bends lap after lap as a distance-keyed profile can), which keeps
+    |a_y| below about 0.3 g in the tightest (35 m) bend on a dry road; ``duration`` or
+    ``laps`` repeat it (e.g. 30 minutes)."""
+    sc = mixed_loop(**kw)  # type: ignore[arg-type]
+    prof = SpeedProfile(
+        ((0.0, v_low), (0.5 * cycle, v_high), (cycle, v_low)), by="time", period=cycle
+    )
+    return replace(sc, name="gentle_loop", speed=prof,
+                   description=f"handling loop, gentle ({v_low:g}-{v_high:g} m/s)")
+
+
+def loop_ice_bend(**kw: object) -> Scenario:
+    """The gentle loop with an ice patch (radius 7 m) in the tight left-hand bend: the
+    car corners into ice at 7-8 m/s and slides for a moment every lap."""
+    kw.setdefault(
+        "patches", (FrictionPatch.of("ice", "circle", 291.0, 36.0, radius=7.0),)
+    )
+    sc = gentle_loop(**kw)  # type: ignore[arg-type]
+    return replace(sc, name="loop_ice_bend", description="gentle loop, ice in the tight bend")
+
+
+def launch_on_ice(**kw: object) -> Scenario:
+    """Hard acceleration from rest on an ice strip (first 60 m), then dry braking."""
+    kw.setdefault("top_speed", 15.0)
+    kw.setdefault("accel_time", 5.0)
+    kw.setdefault("duration", 20.0)
+    kw.setdefault(
+        "patches", (FrictionPatch.of("ice", "rect", 30.0, 0.0, length=60.0, width=8.0),)
+    )
+    sc = accel_brake_strip(**kw)  # type: ignore[arg-type]
+    return replace(sc, name="launch_on_ice")
+
+
 SCENARIOS: dict[str, Callable[..., Scenario]] = {
     "skidpad_circle": skidpad_circle,
     "slalom": slalom,
@@ -535,4 +573,7 @@ SCENARIOS: dict[str, Callable[..., Scenario]] = {
     "circle_wet_patch": circle_wet_patch,
     "brake_on_ice": brake_on_ice,
     "launch_on_snow": launch_on_snow,
+    "gentle_loop": gentle_loop,
+    "loop_ice_bend": loop_ice_bend,
+    "launch_on_ice": launch_on_ice,
 }
