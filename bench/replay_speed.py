@@ -6,6 +6,10 @@ subprocess (start-up included); the report generation alone; and the ratios agai
 targets (replay <= 2x the bare read, >= 100x real time, report <= 5 s).
 
 Usage: python bench/replay_speed.py [--bag DIR] [--duration S] [--storage sqlite3|mcap]
+                                   [--baseline SRC_DIR]
+``--baseline`` also times the replay command of another copy of the package (a folder
+holding ``kinematic_monitor/``, e.g. an earlier checkout) in the same run, for a
+before/after comparison measured side by side.
 Without --bag a drive is simulated into a temporary folder (JointState 100 Hz, Imu 200 Hz,
 Odometry 50 Hz, NavSatFix 10 Hz: about 216 000 messages for 600 s).
 """
@@ -85,14 +89,22 @@ def core_only(bag: Path, params: Path) -> tuple[float, float]:
     return time.perf_counter() - t, time.process_time() - c
 
 
-def replay_command(bag: Path, params: Path, out: Path) -> tuple[float, float, str]:
-    """The whole command in a fresh interpreter: (wall, child cpu, summary line)."""
+def replay_command(bag: Path, params: Path, out: Path,
+                   src: Path | None = None) -> tuple[float, float, str]:
+    """The whole command in a fresh interpreter: (wall, child cpu, summary line).
+
+    ``src``: run the package found in this folder instead of the installed one.
+    """
     env = {**os.environ, "CI": "true"}
+    if src is not None:
+        env["PYTHONPATH"] = os.pathsep.join([str(src), env.get("PYTHONPATH", "")]).rstrip(
+            os.pathsep)
     before = os.times()
     t = time.perf_counter()
     r = subprocess.run([sys.executable, "-c", RUN_REPLAY, "replay", str(bag), "--params",
                         str(params), "--out", str(out), "--no-report", "--json-summary"],
-                       capture_output=True, text=True, env=env, timeout=3600)
+                       capture_output=True, text=True, env=env, timeout=3600,
+                       cwd=src)  # `python -c` puts the working folder first on sys.path
     wall = time.perf_counter() - t
     after = os.times()
     if r.returncode not in (0, 1):
@@ -125,6 +137,8 @@ def main() -> int:
     ap.add_argument("--params", type=Path, help="parameter file (default: BAG/params.yaml)")
     ap.add_argument("--duration", type=float, default=600.0, help="simulated drive [s]")
     ap.add_argument("--storage", choices=("sqlite3", "mcap"), default="sqlite3")
+    ap.add_argument("--baseline", type=Path,
+                    help="folder holding another kinematic_monitor/ to time side by side")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory(prefix="km_bench_") as tmp:
         tmpdir = Path(tmp)
@@ -140,6 +154,9 @@ def main() -> int:
         ours_w, ours_c, ns = our_reader(bag, params)
         core_w, core_c = core_only(bag, params)
         rep_w, rep_c, summary_line = replay_command(bag, params, tmpdir / "out")
+        base = None
+        if args.baseline is not None:
+            base = replay_command(bag, params, tmpdir / "out_baseline", args.baseline)
         rpt_w, rpt_c, size = report_time(tmpdir / "out", bag)
         summary = json.loads(summary_line)
         duration = float(summary["duration_s"])
@@ -153,6 +170,16 @@ def main() -> int:
     print(f"{'replay --no-report (subprocess, start-up)':44s} {rep_w:8.2f} {rep_c:8.2f}")
     print(f"{f'report rendering (html {size / 1024:.0f} kB)':44s} {rpt_w:8.2f} "
           f"{rpt_c:8.2f}")
+    if base is not None:
+        print(f"{'replay --no-report, baseline ' + args.baseline.name:44s} {base[0]:8.2f} "
+              f"{base[1]:8.2f}")
+        same = json.loads(base[2])["events"] == summary["events"]
+        print(f"baseline / this: {base[0] / rep_w:.2f}x wall, "
+              f"{base[1] / max(rep_c, 1e-9):.2f}x cpu; event counts "
+              f"{'identical' if same else 'DIFFER'}")
+    per = 1e6 / max(n, 1)
+    print(f"per message (cpu): bare {bare_c * per:.1f} us, reader {ours_c * per:.1f} us, "
+          f"reader + monitor {core_c * per:.1f} us, replay command {rep_c * per:.1f} us")
     ratio_w, ratio_c = rep_w / bare_w, rep_c / max(bare_c, 1e-9)
     print(f"replay / bare read: {ratio_w:.2f}x wall, {ratio_c:.2f}x cpu (target <= 2x)")
     print(f"replay / core alone: {rep_w / core_w:.2f}x wall (outputs, time series, start-up)")

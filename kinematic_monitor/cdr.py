@@ -220,6 +220,11 @@ def _names(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[str, ...], int]:
     return result, pos
 
 
+#: compiled float64-sequence layouts by (layout, count); JointState counts repeat
+_DOUBLES: dict[tuple[_Layout, int], struct.Struct] = {}
+_DOUBLES_MAX = 64
+
+
 def _doubles(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[float, ...], int]:
     pos = _align(pos, 4)
     (count,) = lay.u32.unpack_from(buf, pos)
@@ -230,8 +235,13 @@ def _doubles(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[float, ...], in
     end = pos + 8 * count
     if end > len(buf):
         raise CdrError(f"float64 sequence of {count} at offset {pos} runs past the buffer")
-    fmt = ("<" if lay is _LE else ">") + f"{count}d"
-    return struct.unpack_from(fmt, buf, pos), end
+    layout = _DOUBLES.get((lay, count))
+    if layout is None:
+        if len(_DOUBLES) >= _DOUBLES_MAX:
+            _DOUBLES.clear()
+        layout = _DOUBLES[(lay, count)] = struct.Struct(
+            ("<" if lay is _LE else ">") + f"{count}d")
+    return layout.unpack_from(buf, pos), end
 
 
 @_guard("sensor_msgs/msg/JointState")

@@ -83,6 +83,8 @@ STATUS_NAMES = {
     "grip": "grip",
 }
 INPUTS = ("joint_states", "localization", "imu")
+#: check -> its name in time-series columns (the status label with underscores)
+SERIES_CHECKS = {ch: label.replace(" ", "_") for ch, label in STATUS_NAMES.items()}
 #: decisions taken through a gap without samples before skipping to its end (300 s at the
 #: default period: every input is stale long before; bounds the time a garbage future stamp
 #: or a clock jump costs)
@@ -104,6 +106,13 @@ def _opt(cfg: Any, name: str, default: Any) -> Any:
     except (KeyError, TypeError):
         pass
     return default
+
+
+_CHASSIS, _LOC, _IMU, _GNSS = range(4)
+#: sample class -> kind (exact-type look-up on the hot path; subclasses via isinstance)
+_SAMPLE_KINDS: dict[type, int] = {ChassisSample: _CHASSIS, LocalizationSample: _LOC,
+                                  ImuSample: _IMU, GnssSample: _GNSS}
+isfinite = math.isfinite
 
 
 def _fin(*vals: float) -> bool:
@@ -217,6 +226,11 @@ class Monitor:
             "localization": float(config.timeouts.localization),
             "imu": float(config.timeouts.imu),
         }
+        self._timeout_loc = self.timeouts["localization"]
+        self._timeout_imu = self.timeouts["imu"]
+        # wheel-speed noise as CG speed [m/s], for one wheel and for the mean of two
+        self._sig_v = n.wheel_speed_std * self.p.effective_wheel_radius
+        self._sig_v_pair = n.wheel_speed_std * self.p.effective_wheel_radius / math.sqrt(2.0)
         self.frame_id = str(_opt(config, "output.prediction_frame", "map"))
         # thresholds from the false-alarm rates
         rate = float(c.false_alarm_rate)
@@ -250,6 +264,7 @@ class Monitor:
         }
         self.notes: list[tuple[float, str]] = []
         self._transitions: list[Transition] = []
+        self._series_needs: dict[str, set[str]] | None = None
         self._reset_state()
 
     # ------------------------------------------------------------------ state
@@ -285,6 +300,8 @@ class Monitor:
         self._heading_n = 0
         self._slip_acc: dict[str, list[float]] = {"front": [], "rear": []}
         self._kin_rate = math.nan
+        self._curv_delta = math.nan  # steering angle [rad] of the kept curvature [1/m]
+        self._curv = math.nan
         self._yaw_allow = 0.0  # latest yaw-rate allowance [rad/s]
         self._kin_ref = (math.nan, math.nan)  # (stamp, kinematic yaw rate) for the slope
         self._lag_allow = 0.0  # transient allowance [rad/s]
@@ -331,6 +348,7 @@ class Monitor:
         self._nis: deque[float] = deque(maxlen=max(1, self.nis_window))
         self._nis_dof = 3
         self._declared_reset_t = -math.inf
+        self._clock_t = -math.inf  # latest external clock time given to check_stale [s]
 
     def reset_timeline(self, stamp: float) -> None:
         """Time jumped backwards: close open events at the last time and start afresh."""
@@ -358,55 +376,53 @@ class Monitor:
         self._declared_reset_t = stamp
 
     def _process(self, s: Any) -> None:
-        if not isinstance(s, (ChassisSample, LocalizationSample, ImuSample, GnssSample)):
-            self.counters["rejected_type"] += 1
-            return
+        kind = _SAMPLE_KINDS.get(type(s))
+        if kind is None:  # a subclass of a sample type, or not a sample at all
+            kind = next((k for cls, k in _SAMPLE_KINDS.items() if isinstance(s, cls)), None)
+            if kind is None:
+                self.counters["rejected_type"] += 1
+                return
         stamp = s.stamp
-        if not isinstance(stamp, (int, float)) or not math.isfinite(stamp):
+        if not isinstance(stamp, (int, float)) or not isfinite(stamp):
             self.counters["rejected_nan"] += 1
             return
         if stamp < self.now:
             self.counters["rejected_out_of_order"] += 1
             return
-        if isinstance(s, ChassisSample):
-            kind = "joint_states"
-        elif isinstance(s, LocalizationSample):
-            kind = "localization"
-            if not _fin(s.x, s.y, s.yaw) or any(not math.isfinite(v) for v in s.pose_cov):
+        if kind == _IMU:
+            if not isfinite(s.yaw_rate):
                 self.counters["rejected_nan"] += 1
                 return
-        elif isinstance(s, ImuSample):
-            kind = "imu"
-            if not _fin(s.yaw_rate):
+        elif kind == _LOC:
+            if not (isfinite(s.x) and isfinite(s.y) and isfinite(s.yaw)) or any(
+                    not isfinite(v) for v in s.pose_cov):
                 self.counters["rejected_nan"] += 1
                 return
-        elif isinstance(s, GnssSample):
+        elif kind == _GNSS:
             return
-        else:
-            self.counters["rejected_type"] += 1
-            return
-        if not math.isfinite(self._first_stamp):
+        if not isfinite(self._first_stamp):
             self._first_stamp = stamp
             self._grid_k = math.floor(stamp / self.period) + 1
             self._next_decision = self._grid_k * self.period
-        self._decide_until(stamp)
+        if self._next_decision <= stamp:
+            self._decide_until(stamp)
         self.now = stamp
         self.counters["samples"] += 1
-        if kind == "joint_states":
-            self._on_chassis(s)
-        elif kind == "localization":
-            self._on_loc(s)
-        else:
+        if kind == _IMU:
             self._on_imu(s)
+        elif kind == _CHASSIS:
+            self._on_chassis(s)
+        else:
+            self._on_loc(s)
 
     # ------------------------------------------------------------------ chassis
     def _on_chassis(self, s: ChassisSample) -> None:
         p = self.p
         hold = self.timeouts["joint_states"]
         got_steer = True
-        if _fin(s.steer):
+        if isfinite(s.steer):
             delta_m = s.steer
-        elif _fin(s.steer_left, s.steer_right):
+        elif isfinite(s.steer_left) and isfinite(s.steer_right):
             try:
                 delta_m = model.ackermann_to_bicycle(s.steer_left, s.steer_right, p)
             except ValueError:
@@ -422,9 +438,9 @@ class Monitor:
         delta = model.corrected_steer(delta_m, p)
         wheels = (s.wheel_front_left, s.wheel_front_right, s.wheel_rear_left, s.wheel_rear_right)
         got_speed = True
-        if _fin(wheels[2], wheels[3]) and _fin(delta):
+        if isfinite(wheels[2]) and isfinite(wheels[3]) and isfinite(delta):
             speed = model.cg_speed_from_rear_wheels(wheels[2], wheels[3], delta, p)
-        elif _fin(s.speed):
+        elif isfinite(s.speed):
             speed = s.speed
         else:  # steering-only sample: reuse the latest speed while fresh
             got_speed = False
@@ -433,7 +449,7 @@ class Monitor:
         if not (got_steer or got_speed):
             self.counters["rejected_nan"] += 1
             return
-        if not _fin(delta, speed):  # half of the inputs so far: keep it for the other half
+        if not (isfinite(delta) and isfinite(speed)):  # half of the inputs so far: keep it
             if got_steer:
                 self._delta, self._delta_meas, self._steer_t = delta, delta_m, s.stamp
             if got_speed:
@@ -448,7 +464,8 @@ class Monitor:
             self._steer_pair = (s.steer_left, s.steer_right)
         if got_speed:
             self._speed_t = s.stamp
-            self._wheels = wheels if all(math.isfinite(w) for w in wheels) else None
+            self._wheels = wheels if (isfinite(wheels[0]) and isfinite(wheels[1])
+                                      and isfinite(wheels[2]) and isfinite(wheels[3])) else None
         self._n_chassis_block += 1
         self._dr_nchassis += 1
         self.last_seen["joint_states"] = s.stamp
@@ -470,10 +487,10 @@ class Monitor:
         ≥ 0.05 s (steering noise), the allowance decays with time constant yaw_lag.
         """
         kin = self._kin_rate
-        if not _fin(kin) or self.yaw_lag <= 0.0:
+        if not isfinite(kin) or self.yaw_lag <= 0.0:
             return
         t0, k0 = self._kin_ref
-        if not _fin(t0) or stamp < t0:
+        if not isfinite(t0) or stamp < t0:
             self._kin_ref = (stamp, kin)
             return
         dt = stamp - t0
@@ -485,68 +502,81 @@ class Monitor:
 
     def _kinematic_rate(self) -> float:
         """Kinematic yaw rate [rad/s] from the latest inputs (with understeer allowance)."""
-        if not _fin(self._delta, self._speed):
-            return math.nan
         delta = self._delta
-        if self.understeer != 0.0 and _fin(self._ay):
+        if not (isfinite(delta) and isfinite(self._speed)):
+            return math.nan
+        if self.understeer != 0.0 and isfinite(self._ay):
             delta -= self.understeer * self._ay
-        return model.yaw_rate(self._kin_speed(), delta, self.p)
+        # model.yaw_rate(v, delta) = v * model.curvature(delta): the curvature changes only
+        # with the steering, so it is kept for the last angle (same floats, fewer calls)
+        if delta != self._curv_delta:
+            self._curv_delta = delta
+            self._curv = model.curvature(delta, self.p)
+        return self._kin_speed() * self._curv
 
     def _have_chassis(self) -> bool:
-        return _fin(self._delta, self._speed)
+        return isfinite(self._delta) and isfinite(self._speed)
 
     def _ground_speed(self) -> float:
         """CG speed over ground [m/s] from the localisation twist, NaN when not fresh."""
         t, v = self._ground
-        fresh = _fin(t, v) and self.now - t <= self.timeouts["localization"]
-        return v if fresh else math.nan
+        if isfinite(t) and isfinite(v) and self.now - t <= self._timeout_loc:
+            return v
+        return math.nan
 
     def _moving(self) -> bool:
         """Moving: wheel-speed or (locked wheels) localisation speed >= checks.min_speed."""
-        if not self._have_chassis():
+        speed = self._speed
+        if not (isfinite(self._delta) and isfinite(speed)):
             return False
+        if abs(speed) >= self.min_speed:
+            return True
         g = self._ground_speed()
-        return abs(self._speed) >= self.min_speed or (_fin(g) and abs(g) >= self.min_speed)
+        return isfinite(g) and abs(g) >= self.min_speed
 
     def _kin_speed(self) -> float:
         """Speed [m/s] for the kinematic prediction: the rear wheels' CG speed, or the
         localisation speed while the rear wheels spin or lock (their speed is not the
         vehicle's then)."""
-        g = self._ground_speed()
-        if self._rear_slipping and _fin(g):
-            return g
+        if self._rear_slipping:
+            g = self._ground_speed()
+            if isfinite(g):
+                return g
         return self._speed
 
     # ------------------------------------------------------------------ IMU
     def _on_imu(self, s: ImuSample) -> None:
-        if _fin(self._heading_t) and 0.0 < s.stamp - self._heading_t <= self.timeouts["imu"]:
-            self._imu_heading += s.yaw_rate * (s.stamp - self._heading_t)
-        elif _fin(self._heading_t) and s.stamp > self._heading_t:
-            self._heading_offset = math.nan  # gap: the integrated heading is lost
-        self._heading_t = s.stamp
-        if self._dr is not None and _fin(self._imu_t) and s.stamp > self._dr_anchor_t:
+        stamp, rate = s.stamp, s.yaw_rate
+        ht = self._heading_t
+        if isfinite(ht):
+            if 0.0 < stamp - ht <= self._timeout_imu:
+                self._imu_heading += rate * (stamp - ht)
+            elif stamp > ht:
+                self._heading_offset = math.nan  # gap: the integrated heading is lost
+        self._heading_t = stamp
+        if self._dr is not None and isfinite(self._imu_t) and stamp > self._dr_anchor_t:
             t0 = max(self._imu_t, self._dr_anchor_t)
-            self._dr_imu_dyaw += s.yaw_rate * (s.stamp - t0)
-        self._imu_t = s.stamp
-        self.last_seen["imu"] = s.stamp
+            self._dr_imu_dyaw += rate * (stamp - t0)
+        self._imu_t = stamp
+        self.last_seen["imu"] = stamp
         self._imu = s
-        self._yaw_rate_imu = s.yaw_rate
-        self._ay = s.ay if _fin(s.ay) else (
-            self._speed * s.yaw_rate if _fin(self._speed) else math.nan)
-        if self._have_chassis():
-            self._add_yaw_residual(s.yaw_rate, self.noise.imu_yaw_rate_std)
+        self._yaw_rate_imu = rate
+        speed = self._speed
+        self._ay = s.ay if isfinite(s.ay) else (
+            speed * rate if isfinite(speed) else math.nan)
+        if isfinite(self._delta) and isfinite(speed):
+            self._add_yaw_residual(rate, self.noise.imu_yaw_rate_std)
 
     def _imu_fresh(self) -> bool:
         t = self.last_seen["imu"]
-        return self.imu_enabled and _fin(t) and self.now - t <= self.timeouts["imu"]
+        return self.imu_enabled and isfinite(t) and self.now - t <= self._timeout_imu
 
     def _add_yaw_residual(self, meas: float, meas_std: float) -> None:
         kin = self._kinematic_rate()
         self._kin_rate = kin
         self._meas_rate = meas
-        sig_v = self.noise.wheel_speed_std * self.p.effective_wheel_radius / math.sqrt(2.0)
         noise = yaw_rate_sigma(self._speed, self._delta, self.p.wheelbase, meas_std,
-                               self.noise.steering_angle_std, sig_v, kin, 0.0)
+                               self.noise.steering_angle_std, self._sig_v_pair, kin, 0.0)
         ay = abs(self._ay) if _fin(self._ay) else abs(meas * self._speed)
         allow = (self.model_rel * abs(kin) + self.yaw_tol + self._lag_allow
                  + abs(self._speed) / self.p.wheelbase * self.us_tol * ay)
@@ -796,7 +826,8 @@ class Monitor:
 
     def _dr_advance(self, stamp: float) -> None:
         """Dead-reckon the drift pose to ``stamp`` with the inputs held since ``_dr_t``."""
-        if self._dr is None or not self._have_chassis() or not stamp > self._dr_t:
+        if self._dr is None or not stamp > self._dr_t or not (
+                isfinite(self._delta) and isfinite(self._speed)):
             return
         dt = stamp - self._dr_t
         x, y, yaw = self._dr
@@ -908,6 +939,10 @@ class Monitor:
         chk.reset(t)
 
     def _check_inputs(self, t: float) -> None:
+        # never behind the external clock of check_stale: with stamps behind the node's
+        # clock (a clock offset, stamps an hour back) the inputs stay STALE instead of
+        # flapping between the two clocks at the tick rate
+        t = max(t, self._clock_t)
         for name in INPUTS:
             if name == "imu" and not self.imu_enabled:
                 continue
@@ -926,6 +961,7 @@ class Monitor:
         """Staleness at an external clock time ``now`` [s] (the node's clock)."""
         if not math.isfinite(now) or now < self.now:
             return
+        self._clock_t = max(self._clock_t, now)
         self._check_inputs(now)
 
     # ------------------------------------------------------------------ events
@@ -1103,15 +1139,7 @@ class Monitor:
         out: list[CheckStatus] = []
         stale_inputs = {n for n in INPUTS if self._stale[n].level}
         inactive = f"inactive below {self.min_speed:.1f} m/s"
-        needs = {"yaw_rate": {"joint_states"} | ({"imu"} if self.imu_enabled else set()),
-                 "sideslip": {"joint_states", "localization"},
-                 "drift": {"joint_states", "localization"},
-                 "slip_ratio": {"joint_states", "localization"},
-                 "wheel_scale": {"joint_states", "localization"},
-                 "localization": {"localization"},
-                 "nis": {"localization"},
-                 "heading": {"localization", "imu"},
-                 "grip": set()}
+        needs = self._needs_by_check()
         for ch, label in STATUS_NAMES.items():
             figs = dict(self._figures.get(ch, {}))
             level, msg = OK, "ok"
@@ -1149,6 +1177,68 @@ class Monitor:
             msg = f"no {name} for more than {self.timeouts[name]:.2f} s" if tr.level else "ok"
             out.append(CheckStatus(PREFIX + f"input {name}", level, msg, _fmt(figs)))
         return out
+
+    def series_values(self) -> tuple[dict[str, int], dict[str, float]]:
+        """What ``statuses()`` carries, as numbers, for a time-series row (cheap: no text).
+
+        Returns (level per check, finite figures as ``"<check>.<figure>"``), the check
+        named as in ``statuses()`` with spaces as underscores ('yaw_rate', 'wheel_slip',
+        'input_imu'); levels as in ``statuses()`` (REP 107 ints, STALE on stale inputs).
+        """
+        needs = self._series_needs
+        if needs is None:
+            needs = self._series_needs = self._needs_by_check()
+        stale = {n for n in INPUTS if self._stale[n].level}
+        levels: dict[str, int] = {}
+        values: dict[str, float] = {}
+        isfinite = math.isfinite
+        for ch, check in SERIES_CHECKS.items():
+            figs = self._figures.get(ch, {})
+            if ch in self._cusum:
+                chk = self._cusum[ch]
+                level = chk.level
+                figs = dict(figs)
+                figs["cusum [sigma]"] = chk.statistic
+                figs["cusum_warn [sigma]"] = chk.h_warn
+                figs["cusum_error [sigma]"] = chk.h_error
+            elif ch == "slip_ratio":
+                level = self._slip.level
+            elif ch == "localization":
+                level = self._jump.level
+            elif ch == "grip":
+                level = self._grip.level
+            elif ch == "nis":
+                figs = dict(figs)
+                level = self._nis_status(figs)[0]
+            else:
+                level = OK
+            if stale and needs[ch] & stale:
+                level = STALE
+            levels[check] = int(level)
+            for key, v in figs.items():
+                if isfinite(v):
+                    values[f"{check}.{key}"] = float(v)
+        for name in INPUTS:
+            if name == "imu" and not self.imu_enabled:
+                continue
+            check = "input_" + name
+            levels[check] = STALE if self._stale[name].level else OK
+            for key, v in self._figures[check].items():
+                if isfinite(v):
+                    values[f"{check}.{key}"] = float(v)
+        return levels, values
+
+    def _needs_by_check(self) -> dict[str, set[str]]:
+        """Inputs each check needs (a stale one makes the check STALE)."""
+        return {"yaw_rate": {"joint_states"} | ({"imu"} if self.imu_enabled else set()),
+                "sideslip": {"joint_states", "localization"},
+                "drift": {"joint_states", "localization"},
+                "slip_ratio": {"joint_states", "localization"},
+                "wheel_scale": {"joint_states", "localization"},
+                "localization": {"localization"},
+                "nis": {"localization"},
+                "heading": {"localization", "imu"},
+                "grip": set()}
 
     def _nis_status(self, figs: dict[str, float]) -> tuple[int, str]:
         n = len(self._nis)

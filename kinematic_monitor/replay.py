@@ -75,23 +75,6 @@ def _progress_enabled() -> bool:
         return False
 
 
-def _float(text: Any) -> float:
-    """The leading number of a figure string ('0.12', '0.12 rad/s', 'nan'), NaN if none."""
-    if isinstance(text, int | float):
-        return float(text)
-    s = str(text).strip().split(" ")[0]
-    try:
-        return float(s)
-    except ValueError:
-        return math.nan
-
-
-def _short_check(name: str) -> str:
-    """'kinematic_monitor: yaw rate' -> 'yaw_rate'."""
-    short = name.split(":", 1)[-1].strip() if ":" in name else name
-    return short.replace(" ", "_") or name
-
-
 def _bicycle_steer(s: ChassisSample) -> float:
     """Bicycle-equivalent road-wheel angle [rad]: cot d = (cot dl + cot dr)/2 (Ackermann)."""
     if math.isfinite(s.steer):
@@ -217,13 +200,15 @@ class _Recorder:
             self.first = stamp
         if not (stamp <= self.last):
             self.last = stamp
-        if isinstance(sample, ChassisSample):
-            self.steer = _bicycle_steer(sample)
-        elif isinstance(sample, ImuSample):
-            if math.isfinite(sample.ax) and math.isfinite(sample.ay):
-                a = math.hypot(sample.ax, sample.ay)
+        cls = type(sample)
+        if cls is ImuSample or (cls is not ChassisSample and isinstance(sample, ImuSample)):
+            ax, ay = sample.ax, sample.ay
+            if math.isfinite(ax) and math.isfinite(ay):
+                a = math.hypot(ax, ay)
                 if not (a <= self.accel):
                     self.accel = a
+        elif isinstance(sample, ChassisSample):
+            self.steer = _bicycle_steer(sample)
         elif isinstance(sample, LocalizationSample):
             speed = (math.hypot(sample.vx, sample.vy) if math.isfinite(sample.vy)
                      else abs(sample.vx))
@@ -237,11 +222,17 @@ class _Recorder:
                 self.next_row = stamp + self.interval
             self.row(stamp)
 
-    def row(self, stamp: float) -> None:
-        """Take the monitor's statuses and estimate now and add one time-series row."""
+    def row(self, stamp: float, final: bool = False) -> None:
+        """Take the monitor's check figures and estimate now and add one time-series row.
+
+        The full statuses (text) are taken only where needed: every row for --write-bag,
+        and the ``final`` row (the report's final statuses).
+        """
         mon = self.monitor
-        statuses = list(mon.statuses())
-        self.last_statuses = statuses
+        statuses: list[Any] = []
+        if self.keep_rows or final:
+            statuses = list(mon.statuses())
+            self.last_statuses = statuses
         for tr in mon.pop_transitions():  # snapshot: the monitor keeps updating its events
             self.transitions.append((tr.type, tr.event.to_dict(), int(tr.event.level)))
         try:
@@ -263,15 +254,7 @@ class _Recorder:
             x, y, yaw = self.loc[0], self.loc[1], self.loc[2]
         if not math.isfinite(v):
             v = self.loc[3]
-        residuals: dict[str, float] = {}
-        levels: dict[str, int] = {}
-        for st in statuses:
-            check = _short_check(st.name)
-            levels[check] = int(st.level)
-            for key, text in (st.values or {}).items():
-                value = _float(text)
-                if math.isfinite(value):
-                    residuals[f"{check}.{key}"] = value
+        levels, residuals = mon.series_values()
         row: dict[str, Any] = {"x": x, "y": y, "yaw": yaw, "speed": v, "steering": self.steer,
                "accel": self.accel, "residuals": residuals, "levels": levels}
         self.accel = math.nan
@@ -439,7 +422,7 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
                 raise UsageError(f"bag {bag_path!r} holds no usable message on the "
                                  "configured topics")
             monitor.flush(rec.last)
-            rec.row(rec.last)
+            rec.row(rec.last, final=True)
             rec.close()
         channels = rec.channels
         events = list(monitor.events)

@@ -1,6 +1,7 @@
 """Statistical tests behind the checks: chi-square bounds and CUSUM change detection.
 
-Pure Python/scipy, no ROS. All thresholds are derived from a stated false-alarm rate and
+Pure Python (no scipy at run time: importing scipy.stats costs seconds of start-up), no
+ROS. All thresholds are derived from a stated false-alarm rate and
 a sample rate instead of being tuned to one drive:
 
 * chi-square bounds for the normalised innovation squared (NIS) of a consistent filter,
@@ -13,13 +14,114 @@ a sample rate instead of being tuned to one drive:
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable
 from dataclasses import dataclass
-
-from scipy.stats import chi2
+from statistics import NormalDist
 
 SECONDS_PER_HOUR = 3600.0
+_TINY = 1e-300
+_EPS = 1e-16
+_MAX_TERMS = 10_000
+
+
+def gamma_pq(a: float, x: float) -> tuple[float, float]:
+    """Regularised incomplete gamma functions (P(a, x), Q(a, x) = 1 − P), a > 0, x >= 0.
+
+    Series for x < a + 1, Lentz's continued fraction for Q otherwise, so the smaller of
+    the two is computed directly, never as 1 − (a number near 1) (Press et al.,
+    *Numerical Recipes*, 3rd ed., sect. 6.2, from memory).
+    """
+    if not a > 0.0 or not x >= 0.0:
+        raise ValueError(f"gamma_pq needs a > 0 and x >= 0, got a={a}, x={x}")
+    if x == 0.0:
+        return 0.0, 1.0
+    if math.isinf(x):
+        return 1.0, 0.0
+    log_pre = a * math.log(x) - x - math.lgamma(a)
+    if x < a + 1.0:
+        ap, term = a, 1.0 / a
+        total = term
+        for _ in range(_MAX_TERMS):
+            ap += 1.0
+            term *= x / ap
+            total += term
+            if term < total * _EPS:
+                break
+        p = math.exp(log_pre) * total
+        return p, 1.0 - p
+    b = x + 1.0 - a
+    c = 1.0 / _TINY
+    d = 1.0 / b
+    h = d
+    for i in range(1, _MAX_TERMS):
+        an = -i * (i - a)
+        b += 2.0
+        d = an * d + b
+        if abs(d) < _TINY:
+            d = _TINY
+        c = b + an / c
+        if abs(c) < _TINY:
+            c = _TINY
+        d = 1.0 / d
+        delta = d * c
+        h *= delta
+        if abs(delta - 1.0) < _EPS:
+            break
+    q = math.exp(log_pre) * h
+    return 1.0 - q, q
+
+
+def _gamma_quantile(a: float, p: float, x0: float) -> float:
+    """x with P(a, x) = p (0 < p < 1), safeguarded Newton from ``x0`` > 0.
+
+    The upper tail is solved as Q(a, x) = 1 − p (exact in floating point for p >= 0.5),
+    the lower one as P(a, x) = p, each with a bracket that Newton steps may not leave.
+    """
+    upper = p > 0.5
+    target = 1.0 - p if upper else p
+    lo, hi = 0.0, math.inf
+    x = x0
+    log_norm = math.lgamma(a)
+    for _ in range(200):
+        pp, qq = gamma_pq(a, x)
+        f = (qq - target) if upper else (pp - target)
+        # P increases with x: for the upper tail f decreases, for the lower one it increases
+        if (f > 0.0) == upper:
+            lo = x
+        else:
+            hi = x
+        if f == 0.0:
+            return x
+        dens = math.exp((a - 1.0) * math.log(x) - x - log_norm)  # dP/dx
+        new = (x + (f / dens if upper else -f / dens)) if dens > 0.0 else math.nan
+        if not (lo < new < hi):  # outside the bracket: bisect (geometric when unbounded)
+            new = 0.5 * (lo + hi) if math.isfinite(hi) else max(2.0 * x, x + 1.0)
+        if abs(new - x) <= 4.0 * _EPS * abs(x) or hi - lo <= 4.0 * _EPS * abs(x):
+            return new
+        x = new
+    return x
+
+
+@functools.lru_cache(maxsize=4096)
+def chi2_ppf(p: float, dof: int) -> float:
+    """Quantile of chi-square(dof) at probability ``p`` (pure Python; cached).
+
+    χ²(k) quantile = 2·(gamma(k/2) quantile); the start is the Wilson–Hilferty cube-root
+    normal approximation (Wilson & Hilferty 1931), refined by safeguarded Newton steps to
+    about 1e-14 relative (checked against scipy.stats.chi2.ppf in the tests).
+    """
+    if dof < 1:
+        raise ValueError(f"dof must be >= 1, got {dof}")
+    if not 0.0 < p < 1.0:
+        raise ValueError(f"probability must be in (0, 1), got {p}")
+    k = float(dof)
+    z = NormalDist().inv_cdf(p)
+    c = 2.0 / (9.0 * k)
+    wh = k * (1.0 - c + z * math.sqrt(c)) ** 3
+    x0 = 0.5 * wh if wh > 1e-3 else 1e-3 * p
+    return 2.0 * _gamma_quantile(0.5 * k, p, x0)
 
 
 def chi2_upper(dof: int, confidence: float = 0.95) -> float:
@@ -28,7 +130,7 @@ def chi2_upper(dof: int, confidence: float = 0.95) -> float:
         raise ValueError(f"dof must be >= 1, got {dof}")
     if not 0.0 < confidence < 1.0:
         raise ValueError(f"confidence must be in (0, 1), got {confidence}")
-    return float(chi2.ppf(confidence, dof))
+    return chi2_ppf(confidence, dof)
 
 
 def mean_nis_bounds(dof: int, window: int, confidence: float = 0.95) -> tuple[float, float]:
@@ -43,7 +145,7 @@ def mean_nis_bounds(dof: int, window: int, confidence: float = 0.95) -> tuple[fl
         raise ValueError(f"confidence must be in (0, 1), got {confidence}")
     tail = 0.5 * (1.0 - confidence)
     n = window * dof
-    return float(chi2.ppf(tail, n)) / window, float(chi2.ppf(1.0 - tail, n)) / window
+    return chi2_ppf(tail, n) / window, chi2_ppf(1.0 - tail, n) / window
 
 
 def siegmund_arl(k: float, h: float) -> float:

@@ -472,3 +472,32 @@ def test_held_steering_expires_after_the_joint_states_timeout() -> None:
     # partial, plus the lone steering sample at the start
     assert m.counters["chassis_partial"] == 1 + (300 - 49)
     assert m.counters["rejected_nan"] == 0
+
+
+def test_series_values_carry_the_statuses_levels_and_figures() -> None:
+    # the cheap numeric read-out for time-series rows must say what statuses() says
+    # (consistency of two read-outs of one state; no outside source involved)
+    f = Faults(silent_imu=(5.0, 6.5))
+    samples = drive(12.0, lambda t: 12.0, sine_steer(0.05, 4.0), f, seed=5)
+    m = Monitor(config())
+    seen_stale = False
+    for i, s in enumerate(samples):
+        m.process(s)
+        if i % 97:
+            continue
+        levels, values = m.series_values()
+        statuses = m.statuses()
+        assert len(levels) == len(statuses)
+        expected: dict[str, float] = {}
+        for st in statuses:
+            check = st.name.split(": ", 1)[1].replace(" ", "_")
+            assert levels[check] == st.level, check
+            seen_stale = seen_stale or st.level == STALE
+            for key, text in st.values.items():
+                v = float(text)
+                if math.isfinite(v):
+                    expected[f"{check}.{key}"] = v
+        assert set(values) == set(expected)
+        for key, v in values.items():
+            assert f"{v:.6g}" == f"{expected[key]:.6g}", key
+    assert seen_stale

@@ -118,3 +118,49 @@ def test_cusum_negative_side_and_nan_ignored() -> None:
 def test_run_length_helper() -> None:
     assert run_length([3.0, 3.0, 3.0], 0.5, 5.0) == 2
     assert run_length([0.0] * 10, 0.5, 5.0) is None
+
+
+@pytest.mark.parametrize("dof", [1, 2, 3, 5, 30, 150, 1000])
+@pytest.mark.parametrize("p", [1e-9, 0.001, 0.025, 0.3, 0.5, 0.6, 0.95, 0.975, 0.999,
+                               1.0 - 2.7e-8, 1.0 - 1e-12])
+def test_pure_python_chi2_quantile_matches_scipy(dof: int, p: float) -> None:
+    # reference: scipy.stats.chi2.ppf (the run-time code imports no scipy)
+    from kinematic_monitor.stats import chi2_ppf
+
+    assert chi2_ppf(p, dof) == pytest.approx(chi2.ppf(p, dof), rel=1e-12)
+
+
+@pytest.mark.parametrize("a", [0.5, 1.5, 25.0, 500.0])
+@pytest.mark.parametrize("x", [1e-6, 0.3, 1.0, 24.0, 26.0, 80.0, 520.0])
+def test_incomplete_gamma_matches_scipy(a: float, x: float) -> None:
+    # reference: scipy.special.gammainc / gammaincc (regularised lower / upper)
+    from scipy.special import gammainc, gammaincc
+
+    from kinematic_monitor.stats import gamma_pq
+
+    p, q = gamma_pq(a, x)
+    assert p == pytest.approx(gammainc(a, x), rel=1e-12, abs=1e-300)
+    assert q == pytest.approx(gammaincc(a, x), rel=1e-12, abs=1e-300)
+
+
+def test_chi2_quantile_bad_arguments_are_named() -> None:
+    from kinematic_monitor.stats import chi2_ppf, gamma_pq
+
+    with pytest.raises(ValueError, match="probability"):
+        chi2_ppf(1.0, 3)
+    with pytest.raises(ValueError, match="dof"):
+        chi2_ppf(0.5, 0)
+    with pytest.raises(ValueError, match="a > 0"):
+        gamma_pq(-1.0, 1.0)
+
+
+def test_stats_module_does_not_import_scipy() -> None:
+    # start-up cost: importing scipy.stats takes seconds; the run-time path must not
+    import subprocess
+    import sys
+
+    code = ("import sys, kinematic_monitor.stats, kinematic_monitor.monitor; "
+            "print('scipy' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.strip()
+    assert out == "False"
