@@ -21,6 +21,7 @@ from .samples import ChassisSample, GnssSample, ImuSample, LocalizationSample
 
 __all__ = [
     "REASONS",
+    "LOCALIZATION_FRAMES",
     "Rejected",
     "JointMap",
     "stamp_seconds",
@@ -58,7 +59,12 @@ REASONS: dict[str, str] = {
     "out_of_range": "latitude or longitude outside [-90, 90] / [-180, 180] degrees",
     "malformed": "message bytes could not be decoded",
     "missing_field": "the configured field path is not in this message (e.g. short sequence)",
+    "unexpected_frame": "localisation pose not in a map or odom frame (REP 105)",
 }
+
+#: frames a localisation pose may be given in (REP 105 world-fixed frames; a tf prefix such
+#: as ``car1/map`` is allowed): a pose in a body frame or an unknown frame is rejected
+LOCALIZATION_FRAMES = ("map", "odom")
 
 #: below this squared norm a quaternion has no usable orientation
 _MIN_QUAT_NORM2 = 1e-12
@@ -256,6 +262,11 @@ def _frame(frame_id: str) -> str:
     return frame_id[1:] if frame_id.startswith("/") else frame_id
 
 
+def _world_frame(frame: str) -> bool:
+    """True for a REP 105 world-fixed frame (``map``, ``odom``, optionally tf-prefixed)."""
+    return frame.rsplit("/", 1)[-1] in LOCALIZATION_FRAMES
+
+
 def localization_from_pose(
     stamp: float,
     frame_id: str,
@@ -279,7 +290,10 @@ def localization_from_pose(
     cov = _cov3(pose_covariance)
     if isinstance(cov, Rejected):
         return cov
-    return LocalizationSample(stamp, px, py, yaw, frame_id=_frame(frame_id), pose_cov=cov)
+    frame = _frame(frame_id)
+    if not _world_frame(frame):
+        return Rejected("unexpected_frame", repr(frame_id)[:80])
+    return LocalizationSample(stamp, px, py, yaw, frame_id=frame, pose_cov=cov)
 
 
 def localization_from_odometry(
