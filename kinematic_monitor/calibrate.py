@@ -5,6 +5,12 @@ Thin adapter: reads the bags with :mod:`kinematic_monitor.bag`, runs
 schema (each calibrated value commented with its uncertainty and the data used) plus, with
 ``--report``, a text report and a JSON file of all figures. Exit 2 (with a message naming
 the problem) for bad parameters, unreadable bags or too little usable driving.
+
+The fleet sweep (:mod:`kinematic_monitor.sweep`) reads a file named
+``calibrated_params.yaml`` in the bag folder or the bag's output folder: pass that as
+``--out`` to have a sweep use the calibration (the default is whatever ``--out`` says).
+A steering ratio correction is reported as new ratio = current ratio x fitted factor (the
+converters divide steering-wheel angles by the ratio; see ``vehicle.steering_ratio``).
 """
 
 from __future__ import annotations
@@ -27,7 +33,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--params", required=True, metavar="FILE",
                         help="current parameter file (vehicle geometry and topics)")
     parser.add_argument("--out", required=True, metavar="NEW_PARAMS.yaml",
-                        help="parameter file to write (refused if it exists, unless --force)")
+                        help="parameter file to write (refused if it exists, unless --force); "
+                        "name it calibrated_params.yaml in the bag folder or the bag's "
+                        "output folder for the fleet sweep to pick it up")
     parser.add_argument("--report", metavar="DIR", help="write calibration_report.txt and "
                         "calibration.json into DIR (created)")
     parser.add_argument("--events", action="append", default=[], metavar="EVENTS.json",
@@ -85,6 +93,8 @@ def comments(result: Any, written: dict[str, Any]) -> dict[str, str]:
         extra = ""
         if e.name == "vehicle.understeer_gradient":
             extra = f" = {cal.per_g_degrees(e.fitted):.2f} deg/g" if e.observable else ""
+        elif e.name == "vehicle.steering_ratio" and e.prior:
+            extra = f" = {e.prior:.6g} x {e.value / e.prior:.5f}" if e.observable else ""
         if e.observable:
             notes[e.name] = (f"calibrated{extra} {_unc(e)} (1 sigma; fit {e.se_fit:.2g}, "
                              f"bootstrap {e.se_boot:.2g}) from {data}; was {e.prior:.6g}")
@@ -133,8 +143,9 @@ def report_text(result: Any, sources: list[str]) -> str:
                      f"after {r.mean_after:+.4f} / {r.rms_after:.4f} {r.unit}")
     if result.notes:
         lines += ["", "notes:"] + [f"  - {n}" for n in result.notes]
-    lines += ["", "Standard errors describe noise in the data used; they do not include "
-              "model error (tyre dynamics, mounting), so check the residuals too."]
+    lines += ["", "Standard errors (1 sigma) come from the residuals: noise and the model error "
+              "left in them (tyre transients) count; a model error that is the same in every "
+              "sample (e.g. a mounting error) does not, so check the residuals too."]
     return "\n".join(lines) + "\n"
 
 

@@ -28,16 +28,28 @@ Selection (the kinematic assumption holds): speed ``vx >= min_speed``; steady-st
 Measurement equations (rear-axle form, Rajamani 2012, kinematic model; the rear-axle centre
 moves along the heading at ``vx`` with path curvature ``kappa = r / vx``):
 
-* steering, road-wheel angles: ``delta_m = atan(L * kappa) + K * a_y - offset`` where
-  ``delta_m`` is the measured bicycle angle (each measured wheel angle mapped to the bicycle
-  angle through Ackermann geometry, ``tan d = tan d_i / (1 +- (w / 2L) tan d_i)``, the two
-  averaged) and ``delta_true = delta_m + offset`` as in :mod:`kinematic_monitor.model`.
+* steering, road-wheel angles: ``delta_m = atan(L * kappa) + K * a_y + T * dr/dt - offset``
+  where ``delta_m`` is the measured bicycle angle (each measured wheel angle mapped to the
+  bicycle angle through Ackermann geometry, ``tan d = tan d_i / (1 +- (w / 2L) tan d_i)``,
+  the two averaged) and ``delta_true = delta_m + offset`` as in :mod:`kinematic_monitor.model`.
   ``K * a_y`` is the steady-state understeer term of Gillespie 1992, ch. 6
   (``delta = L/R + K a_y``), fitted as a nuisance so that cornering does not bias the
-  offset. ``L`` is fitted too (linearised, Gauss-Newton) when the data make it observable.
-* steering, steering-wheel angle (``vehicle.steering_ratio != 1``): ``delta_sw =
-  rho * (atan(L kappa) + K a_y - offset)``, linear in ``(rho, rho K, -rho offset)``; only
-  the product ``rho * L`` is observable from yaw rate, so ``L`` is kept.
+  offset. ``T * dr/dt`` is the yaw-lag term, also a nuisance: in the linear single-track
+  model (Rajamani 2012, dynamic bicycle model; derivation ours) with the lateral velocity
+  quasi-steady, the axle forces that also turn the body (``I_z dr/dt``) need
+  ``delta = L r / v + K a_y + (I_z / L)(1/C_f + 1/C_r) dr/dt``; the selected samples are
+  steady only within ``max_yaw_accel``, and a drive that enters its bends more gently than
+  it leaves them leaves a mean ``dr/dt`` that, unmodelled, biased the offset (0.0025 deg on
+  the simulated gentle loop, twice the stated standard error). ``L`` is fitted too
+  (linearised, Gauss-Newton) when the data make it observable.
+* steering ratio: the converters hand over road-wheel angles only; a steering-wheel angle
+  (JointState steer joints when ``vehicle.steering_ratio != 1``, or a single-value input of
+  kind 'steering_wheel') has been divided by the file's ratio. When the steering is such an
+  angle (:func:`steering_wheel_input`), a wrong ratio scales every angle by
+  ``f = true ratio / file ratio``: ``delta_m = f (atan(L kappa) + K a_y + T dr/dt -
+  offset)``, linear in ``(f, f K, f T, -f offset)``; the reported ratio is
+  ``vehicle.steering_ratio * f``. Only ``f * L`` is observable from yaw rate, so ``L`` is
+  kept. Nothing here divides by the ratio again.
 * wheel speed, rear axle: ``vx = s_r * R * (w_rl + w_rr) / 2`` (least squares through zero);
   front axle: the wheel centres' ground speeds ``|(vx -+ r w/2, vy_cg + r l_f)|`` (the
   Ackermann ICR geometry without using the steering angle) ``= s_f * R * w_f``.
@@ -48,8 +60,16 @@ moves along the heading at ``vx`` with path curvature ``kappa = r / vx``):
   constant radius or slow ramp): ``delta_m + offset - atan(L kappa) = K a_y + c`` on the
   steady samples up to ``k_max_lateral_accel``.
 
-Uncertainty: ``se_fit`` from ``sigma^2 (J^T J)^-1``; ``se_boot`` from a seeded block
-bootstrap (segments drawn with replacement). The reported ``uncertainty`` is the larger.
+Uncertainty: ``se_fit`` from ``sigma^2 (J^T J)^-1`` with ``sigma^2`` the residual variance
+times the Newey-West long-run factor (Bartlett kernel, ``3 * fit_smooth_time`` of lags);
+``se_boot`` from a seeded block bootstrap over segments of ``segment_length`` (drawn with
+replacement). The reported ``uncertainty`` is the larger. Both are built from the
+residuals, so model error that stays in them (tyre transients, load transfer, the
+Magic-Formula curvature beyond ``K a_y``) counts as error, as if it were random between
+drives; model error that is the same in every sample is a bias no residual shows, which is
+why the systematic part (understeer, yaw lag) is in the equations instead. Checked by
+``bench/calibration_coverage.py`` (20 seeds of a 5-minute simulated gentle drive with the
+dynamic simulator: the 95 % intervals cover the injected offset and scale).
 A parameter is *not observable* when its standard error exceeds its resolution, its
 correlation with another fitted parameter exceeds ``max_correlation`` or the column-scaled
 design's condition number exceeds ``max_condition``; it keeps its input value and the
@@ -173,6 +193,28 @@ class _Vehicle:
     max_road_wheel_angle: float
     reference_x: float
     understeer_gradient: float
+    steering_wheel: bool  # steering read as a steering-wheel angle (see steering_wheel_input)
+
+
+def steering_wheel_input(config: Any) -> bool:
+    """True when the steering is read as a steering-wheel angle and divided by the ratio.
+
+    The rule (params.py, ``vehicle.steering_ratio``): a JointState steer joint is a
+    steering-wheel angle whenever ``vehicle.steering_ratio != 1``; a single-value steering
+    input (``inputs.steering.topic``) is one when ``inputs.steering.kind`` is
+    'steering_wheel'. The converters divide by the ratio, so every sample holds road-wheel
+    angles.
+    """
+
+    def get(name: str, default: Any) -> Any:
+        try:
+            return config[name] if isinstance(config, Mapping) else config.get(name)
+        except KeyError:
+            return default
+
+    if str(get("inputs.steering.topic", "") or ""):
+        return str(get("inputs.steering.kind", "road_wheel")) == "steering_wheel"
+    return float(get("vehicle.steering_ratio", 1.0)) != 1.0
 
 
 def _vehicle(config: Any) -> _Vehicle:
@@ -201,6 +243,7 @@ def _vehicle(config: Any) -> _Vehicle:
         max_road_wheel_angle=get("vehicle.max_road_wheel_angle", 0.7),
         reference_x=get("inputs.localization.reference_x", 0.0),
         understeer_gradient=get("vehicle.understeer_gradient", 0.0),
+        steering_wheel=steering_wheel_input(config),
     )
 
 
@@ -289,7 +332,6 @@ def _align(samples: Iterable[Any], v: _Vehicle, rules: SelectionRules,
     ch: list[tuple[float, float, float, float, float, float]] = []
     loc: list[tuple[float, float, float, float, float, float, float]] = []
     imu: list[tuple[float, float, float]] = []
-    road_wheel = v.steering_ratio == 1.0
     for s in samples:
         if isinstance(s, ChassisSample):
             ch.append((s.stamp, s.steer, s.steer_left, s.steer_right,
@@ -306,9 +348,9 @@ def _align(samples: Iterable[Any], v: _Vehicle, rules: SelectionRules,
     order = np.argsort(L[:, 0], kind="stable")
     L = L[order]
     C = C[np.argsort(C[:, 0], kind="stable")]
-    # measured bicycle angle: given directly, else from the left/right pair
-    pair = (_bicycle_angle(C[:, 2], C[:, 3], v) if road_wheel
-            else 0.5 * (C[:, 2] + C[:, 3]))
+    # measured bicycle angle: given directly, else from the left/right road-wheel pair
+    # (the converters have divided steering-wheel angles by the ratio already)
+    pair = _bicycle_angle(C[:, 2], C[:, 3], v)
     C = np.column_stack([C[:, 0], np.where(np.isfinite(C[:, 1]), C[:, 1], pair),
                          C[:, 4], C[:, 5]])
     keep = np.concatenate([[True], np.diff(L[:, 0]) > 0.0])
@@ -369,7 +411,7 @@ def _align(samples: Iterable[Any], v: _Vehicle, rules: SelectionRules,
         ax = np.where(ok_a, _smooth(ax, nsm), _derivative(t, vx, nsm))
     else:
         ax = _derivative(t, vx, nsm)
-    steer_for_rate = steer / (v.steering_ratio if not road_wheel else 1.0)
+    steer_for_rate = steer
     # low-pass the fitted signals: noise in a regressor (yaw rate in kappa) biases a least
     # squares slope towards zero by var(noise)/var(signal); averaging over fit_smooth_time
     # shrinks that ratio by the number of samples averaged
@@ -417,7 +459,7 @@ def _select(d: _Data, v: _Vehicle, rules: SelectionRules, max_ay: float,
          if math.isfinite(med) else np.zeros(len(ay), bool)),
         ("localisation jump", d.jump),
         ("steering beyond max_road_wheel_angle",
-         ~(np.abs(d.steer) <= v.max_road_wheel_angle * v.steering_ratio)),
+         ~(np.abs(d.steer) <= v.max_road_wheel_angle)),
     ]
     ex = np.zeros(len(d.t), bool)
     for a, b in exclude:
@@ -632,7 +674,7 @@ def calibrate(
             f"only {usable:.0f} s of usable driving; need at least {rules.min_usable:.0f} s "
             f"of moving, low-lateral-acceleration data (of {total:.0f} s; rejected: "
             f"{why or 'short runs'})")
-    road_wheel = v.steering_ratio == 1.0
+    road_wheel = not v.steering_wheel
     est: dict[str, Estimate] = {}
     notes: list[str] = []
     S = seg[use]
@@ -644,11 +686,12 @@ def calibrate(
     # -- steering ---------------------------------------------------------------------
     Lw = v.wheelbase
     K_nuis = math.nan
+    rdot = _lag_column(d.yaw_accel[use])
     if road_wheel:
-        offset, K_nuis, Lw = _fit_steering(est, steer, kappa, ay, S, v, res, boot,
+        offset, K_nuis, Lw = _fit_steering(est, steer, kappa, ay, rdot, S, v, res, boot,
                                            ctx, fit_wheelbase)
     else:
-        offset, K_nuis = _fit_steering_ratio(est, steer, kappa, ay, S, v, res, boot,
+        offset, K_nuis = _fit_steering_ratio(est, steer, kappa, ay, rdot, S, v, res, boot,
                                              ctx)
         est["vehicle.wheelbase"] = Estimate(
             "vehicle.wheelbase", "m", v.wheelbase, v.wheelbase, observable=False,
@@ -703,18 +746,20 @@ def calibrate(
     segk = _segments(d, selk, rules)
     usek = segk >= 0
     k_usable = float(np.sum(d.dt[usek]))
-    est["vehicle.understeer_gradient"] = _fit_understeer(d, usek, segk, v, offset, Lw, res,
-                                                         boot, ctx, rules, notes)
+    ratio = est["vehicle.steering_ratio"].value if "vehicle.steering_ratio" in est \
+        else v.steering_ratio
+    factor = ratio / v.steering_ratio  # true road-wheel angle per converted angle
+    est["vehicle.understeer_gradient"] = _fit_understeer(d, usek, segk, v, offset, factor,
+                                                         Lw, res, boot, ctx, rules, notes)
 
     # -- residuals before / after --------------------------------------------------------
     cal = est["vehicle.steering_offset"].value
     scale = est["vehicle.wheel_speed_scale"].value
-    ratio = est["vehicle.steering_ratio"].value if "vehicle.steering_ratio" in est else 1.0
     ek = est["vehicle.understeer_gradient"]
     K_after = ek.value if ek.observable else (K_nuis if math.isfinite(K_nuis) else 0.0)
-    rate_before = _kin_rate(steer / v.steering_ratio + v.steering_offset, vx, v.wheelbase,
+    rate_before = _kin_rate(steer + v.steering_offset, vx, v.wheelbase,
                             v.understeer_gradient, ay)
-    rate_after = _kin_rate(steer / ratio + cal, vx, Lw, K_after, ay)
+    rate_after = _kin_rate(steer / factor + cal, vx, Lw, K_after, ay)
     speed_before = v.wheel_radius * v.wheel_speed_scale * d.w_rear[use]
     speed_after = v.wheel_radius * scale * d.w_rear[use]
     residuals = [
@@ -759,21 +804,33 @@ def _mk(name: str, unit: str, prior: float, fit: _Fit, i: int, reason: str,
     return Estimate(name, unit, prior, val if ok else prior, se, sb, ok, reason, val)
 
 
+def _lag_column(rdot: np.ndarray) -> np.ndarray | None:
+    """The yaw-acceleration regressor [rad/s^2], or None when it carries no signal."""
+    return rdot if float(np.std(rdot)) > 1e-6 else None
+
+
+def _design(cols: Sequence[np.ndarray], rdot: np.ndarray | None,
+            last: np.ndarray) -> np.ndarray:
+    """Columns + the yaw-lag column (when present) + the offset column, in that order."""
+    return np.column_stack([*cols, *(() if rdot is None else (rdot,)), last])
+
+
 def _fit_steering(est: dict[str, Estimate], steer: np.ndarray, kappa: np.ndarray,
-                  ay: np.ndarray, S: np.ndarray, v: _Vehicle, res: Resolution,
-                  boot: _Boot, ctx: tuple[float, float],
+                  ay: np.ndarray, rdot: np.ndarray | None, S: np.ndarray, v: _Vehicle,
+                  res: Resolution, boot: _Boot, ctx: tuple[float, float],
                   fit_wheelbase: bool) -> tuple[float, float, float]:
-    """delta_m = atan(L kappa) + K a_y - offset; returns (offset, K, L used)."""
-    labels = ["wheelbase", "understeer term", "steering offset"]
+    """delta_m = atan(L kappa) + K a_y + T dr/dt - offset; returns (offset, K, L used)."""
+    lag = [] if rdot is None else ["yaw-lag term"]
+    labels = ["wheelbase", "understeer term", *lag, "steering offset"]
     L = v.wheelbase
     fit: _Fit | None = None
     reason_L = "not fitted"
+    minus = -np.ones_like(ay)
     if fit_wheelbase:
-        for _ in range(4):  # Gauss-Newton on L (the model is linear in K and offset)
+        for _ in range(4):  # Gauss-Newton on L (the model is linear in K, T and offset)
             J = kappa / (1.0 + (L * kappa) ** 2)
             y = steer - np.arctan(L * kappa) + L * J
-            fit = _lsq(np.column_stack([J, ay, -np.ones_like(ay)]), y, S,
-                       _Boot(boot.rng, 0, boot.lags))
+            fit = _lsq(_design([J, ay], rdot, minus), y, S, _Boot(boot.rng, 0, boot.lags))
             L_new = float(fit.beta[0])
             if not (0.2 * v.wheelbase < L_new < 5.0 * v.wheelbase):
                 break
@@ -783,13 +840,13 @@ def _fit_steering(est: dict[str, Estimate], steer: np.ndarray, kappa: np.ndarray
                 break
         J = kappa / (1.0 + (L * kappa) ** 2)
         y = steer - np.arctan(L * kappa) + L * J
-        fit = _lsq(np.column_stack([J, ay, -np.ones_like(ay)]), y, S, boot)
+        fit = _lsq(_design([J, ay], rdot, minus), y, S, boot)
         reason_L = _obs_reason("L", 0, fit, res.wheelbase, "m", *ctx, labels)
         if not (0.2 * v.wheelbase < float(fit.beta[0]) < 5.0 * v.wheelbase) and not reason_L:
             reason_L = f"fitted {float(fit.beta[0]):.3g} m is implausible"
     if fit is not None and reason_L == "":
         est["vehicle.wheelbase"] = _mk("vehicle.wheelbase", "m", v.wheelbase, fit, 0, "")
-        i_k, i_o = 1, 2
+        i_k, i_o = 1, len(labels) - 1
     else:
         fitted = float(fit.beta[0]) if fit is not None else math.nan
         est["vehicle.wheelbase"] = Estimate(
@@ -799,9 +856,9 @@ def _fit_steering(est: dict[str, Estimate], steer: np.ndarray, kappa: np.ndarray
             False, reason_L, fitted)
         L = v.wheelbase
         y = steer - np.arctan(L * kappa)
-        fit = _lsq(np.column_stack([ay, -np.ones_like(ay)]), y, S, boot)
+        fit = _lsq(_design([ay], rdot, minus), y, S, boot)
         labels = labels[1:]
-        i_k, i_o = 0, 1
+        i_k, i_o = 0, len(labels) - 1
     reason = _obs_reason("offset", i_o, fit, res.steering_offset, "rad", *ctx, labels)
     est["vehicle.steering_offset"] = _mk("vehicle.steering_offset", "rad", v.steering_offset,
                                          fit, i_o, reason)
@@ -809,22 +866,30 @@ def _fit_steering(est: dict[str, Estimate], steer: np.ndarray, kappa: np.ndarray
 
 
 def _fit_steering_ratio(est: dict[str, Estimate], steer: np.ndarray, kappa: np.ndarray,
-                        ay: np.ndarray, S: np.ndarray, v: _Vehicle, res: Resolution,
-                        boot: _Boot,
+                        ay: np.ndarray, rdot: np.ndarray | None, S: np.ndarray, v: _Vehicle,
+                        res: Resolution, boot: _Boot,
                         ctx: tuple[float, float]) -> tuple[float, float]:
-    """delta_sw = a atan(L kappa) + b a_y + c; rho = a, K = b/a, offset = -c/a."""
-    X = np.column_stack([np.arctan(v.wheelbase * kappa), ay, np.ones_like(ay)])
+    """delta_m = f (atan(L kappa) + K a_y + T dr/dt - offset) = a atan(L kappa) + b a_y
+    (+ t dr/dt) + c; the ratio factor f = a, K = b/a, offset = -c/a.
+
+    ``delta_m`` is the road-wheel angle the converter made with the file's ratio; the
+    steering-wheel angle read / true ratio is the true angle, so f = true / file ratio and
+    the corrected ratio is ``vehicle.steering_ratio * f``.
+    """
+    X = _design([np.arctan(v.wheelbase * kappa), ay], rdot, np.ones_like(ay))
     fit = _lsq(X, steer, S, boot)
-    a, b, c = (float(x) for x in fit.beta)
-    labels = ["steering ratio", "understeer term", "steering offset"]
+    a, b, c = float(fit.beta[0]), float(fit.beta[1]), float(fit.beta[-1])
+    lag = [] if rdot is None else ["yaw-lag term"]
+    labels = ["steering ratio", "understeer term", *lag, "steering offset"]
     # delta method for (rho, offset): gradients of (a) and (-c/a)
-    g_off = np.array([c / a**2, 0.0, -1.0 / a])
+    g_off = np.zeros(len(fit.beta))
+    g_off[0], g_off[-1] = c / a**2, -1.0 / a
     se_off = float(math.sqrt(max(g_off @ fit.cov @ g_off, 0.0)))
-    boot_off = -fit.boot[:, 2] / fit.boot[:, 0] if len(fit.boot) > 1 else np.zeros(0)
+    boot_off = -fit.boot[:, -1] / fit.boot[:, 0] if len(fit.boot) > 1 else np.zeros(0)
     sb_off = float(np.std(boot_off, ddof=1)) if len(boot_off) > 1 else math.nan
-    r_ratio = _obs_reason("ratio", 0, fit, res.steering_ratio * abs(a), "", *ctx, labels)
+    r_ratio = _obs_reason("ratio", 0, fit, res.steering_ratio, "", *ctx, labels)
     est["vehicle.steering_ratio"] = _mk("vehicle.steering_ratio", "-", v.steering_ratio, fit,
-                                        0, r_ratio)
+                                        0, r_ratio, transform=v.steering_ratio)
     off = -c / a
     worst = max(se_off, sb_off if math.isfinite(sb_off) else 0.0)
     r_off = "" if worst <= res.steering_offset else (
@@ -836,7 +901,7 @@ def _fit_steering_ratio(est: dict[str, Estimate], steer: np.ndarray, kappa: np.n
 
 
 def _fit_understeer(d: _Data, usek: np.ndarray, segk: np.ndarray, v: _Vehicle,
-                    offset: float, L: float, res: Resolution, boot: _Boot,
+                    offset: float, factor: float, L: float, res: Resolution, boot: _Boot,
                     ctx: tuple[float, float], rules: SelectionRules,
                     notes: list[str]) -> Estimate:
     name, unit = "vehicle.understeer_gradient", "rad/(m/s^2)"
@@ -845,11 +910,11 @@ def _fit_understeer(d: _Data, usek: np.ndarray, segk: np.ndarray, v: _Vehicle,
                         observable=False, reason="no steady-state driving")
     vx, r = d.vx[usek], d.r[usek]
     ay = vx * r
-    ratio = v.steering_ratio
-    delta = d.steer[usek] / ratio + offset
+    delta = d.steer[usek] / factor + offset
     y = delta - np.arctan(L * r / vx)
     spread = float(np.std(ay))
-    fit = _lsq(np.column_stack([ay, np.ones_like(ay)]), y, segk[usek], boot)
+    rdot = _lag_column(d.yaw_accel[usek])
+    fit = _lsq(_design([ay], rdot, np.ones_like(ay)), y, segk[usek], boot)
     if spread < rules.min_k_spread:
         reason = (f"lateral acceleration spread {spread:.2f} m/s^2 below "
                   f"{rules.min_k_spread:g} m/s^2: drive a constant-radius circle with rising "
@@ -857,7 +922,9 @@ def _fit_understeer(d: _Data, usek: np.ndarray, segk: np.ndarray, v: _Vehicle,
         e = _mk(name, unit, v.understeer_gradient, fit, 0, reason)
     else:
         reason = _obs_reason(name, 0, fit, res.understeer_gradient, unit, *ctx,
-                             ["understeer gradient", "steering offset residual"])
+                             ["understeer gradient",
+                              *(() if rdot is None else ("yaw-lag term",)),
+                              "steering offset residual"])
         e = _mk(name, unit, v.understeer_gradient, fit, 0, reason)
     if e.observable and (np.all(ay > 0) or np.all(ay < 0)):
         notes.append("understeer gradient from one turn direction only "

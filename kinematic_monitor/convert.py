@@ -107,9 +107,13 @@ class JointMap:
     ``rear_wheel_joints`` are (left, right) or empty when the vehicle does not report
     them. Resolved index tuples are cached per name tuple, so a driver that always
     sends the same names costs one dict lookup per message.
+
+    ``steering_ratio`` [-] is ``vehicle.steering_ratio``: when it is not 1 the steering
+    joints report steering-wheel angles and :func:`chassis_from_joint_state` divides their
+    positions by it, so samples always hold road-wheel angles (the core never divides).
     """
 
-    __slots__ = ("steering", "front", "rear", "_cache")
+    __slots__ = ("steering", "front", "rear", "steering_ratio", "_cache")
 
     _CACHE_MAX = 64
 
@@ -118,8 +122,14 @@ class JointMap:
         steering_joints: Sequence[str],
         front_wheel_joints: Sequence[str] = (),
         rear_wheel_joints: Sequence[str] = (),
+        steering_ratio: float = 1.0,
     ) -> None:
         self.steering = tuple(steering_joints)
+        ratio = float(steering_ratio)
+        if not (_isfinite(ratio) and ratio > 0.0):
+            raise ValueError(f"steering_ratio must be a finite positive number, "
+                             f"got {steering_ratio!r}")
+        self.steering_ratio = ratio
         self.front = tuple(front_wheel_joints)
         self.rear = tuple(rear_wheel_joints)
         for label, group in (
@@ -182,9 +192,11 @@ def chassis_from_joint_state(
 ) -> ChassisSample | Rejected:
     """Steering angles [rad] (joint positions) and wheel speeds [rad/s] (joint velocities).
 
-    ``max_steer`` [rad] is the largest physically possible road-wheel angle; larger
-    magnitudes are rejected. Velocities may be empty when no wheel joints are configured;
-    positions may be empty when no steering joints are (steering from another input).
+    Steering positions are divided by ``jmap.steering_ratio`` (steering-wheel to road-wheel
+    angle; 1 = the joints are road wheels). ``max_steer`` [rad] is the largest physically
+    possible road-wheel angle; larger magnitudes (after the division) are rejected.
+    Velocities may be empty when no wheel joints are configured; positions may be empty
+    when no steering joints are (steering from another input).
     """
     if not (stamp > 0.0 and _isfinite(stamp)):
         return _BAD_STAMP
@@ -200,6 +212,8 @@ def chassis_from_joint_state(
         sr = positions[idx[1]]
         if not (_isfinite(sl) and _isfinite(sr)):
             return _NAN
+        if jmap.steering_ratio != 1.0:
+            sl, sr = sl / jmap.steering_ratio, sr / jmap.steering_ratio
         if abs(sl) > max_steer or abs(sr) > max_steer:
             return _STEER
     else:

@@ -188,15 +188,20 @@ SPECS: tuple[ParamSpec, ...] = (
             "Estimate it with `kinematic-monitor calibrate`.",
             -0.05, 0.05),
     _double("vehicle.steering_ratio", 1.0, "-",
-            "Steering-wheel angle per road-wheel angle; 1.0 when the steer joints report "
-            "road-wheel angles, else the measured angle is divided by it.",
+            "Steering-wheel angle per road-wheel angle. 1.0: the steer joints report "
+            "road-wheel angles. Otherwise the JointState steer joints report steering-wheel "
+            "angles, and so does a single-value steering input of kind 'steering_wheel'; the "
+            "converters divide them by this ratio, so the monitor and calibrate only ever "
+            "see road-wheel angles and never divide again. calibrate reports a correction "
+            "as new ratio = this ratio x the fitted factor.",
             0.0, 50.0, lo_inc=False),
     # inputs
     _string("inputs.joint_states.topic", "/joint_states",
             "sensor_msgs/JointState topic with steering angles and wheel speeds.", "topic"),
     _joints("inputs.joint_states.steering_joints",
             ["front_left_steer_joint", "front_right_steer_joint"],
-            "Left and right steer joints; position = road-wheel angle [rad]."),
+            "Left and right steer joints; position = road-wheel angle [rad] (steering-wheel "
+            "angle when vehicle.steering_ratio != 1)."),
     _joints("inputs.joint_states.front_wheel_joints",
             ["front_left_wheel_joint", "front_right_wheel_joint"],
             "Left and right front wheel joints; velocity = wheel angular speed [rad/s]."),

@@ -114,3 +114,12 @@ def test_events_file_errors_are_named(tmp_path: Path) -> None:
     ev.write_text(json.dumps({"schema": "kinematic_monitor.events/1", "source": "b",
                               "events": [{"start": 10.0, "end": 12.0}]}))
     assert calcmd._event_windows([str(ev)]) == [(9.0, 13.0)]
+
+
+def test_out_help_names_the_sweep_file() -> None:
+    # the fleet sweep looks for this file name (kinematic_monitor.sweep.CALIBRATION_FILE)
+    from kinematic_monitor.sweep import CALIBRATION_FILE
+
+    parser = argparse.ArgumentParser()
+    calcmd.add_arguments(parser)
+    assert CALIBRATION_FILE in " ".join(parser.format_help().split())
