@@ -1,13 +1,16 @@
 """Load bench for the live node: separate publisher and node processes over DDS (localhost).
 
-For each (executor, rates) case it prints: messages published and received, samples dropped
-for lateness by the reorder buffer, receive and processed latency (wall time - header stamp,
-median and 99th percentile; "processed" includes the reorder window), and the node's CPU
-use from /proc/<pid>/stat. Then, in this same process, the core's per-sample cost
+For each (executor, message mode, rates) case it prints: messages published and received,
+samples dropped for lateness by the reorder buffer, receive and processed latency (wall time
+- header stamp, median and 99th percentile; "processed" includes the reorder window), and
+the node's CPU use from /proc/<pid>/stat. Then, in this same process, the core's per-sample cost
 (Monitor.process over a recorded-like mix) beside a bare filterpy EKF step, as a ratio.
 
 Compare figures within one run only (shared, noisy machine; see PERF_NOTES.md).
-Usage: python bench/node_load.py [--quick]
+Message mode: ``raw`` = serialized bytes decoded by kinematic_monitor.fastpath, ``typed`` =
+rclpy message objects (KINEMATIC_MONITOR_MESSAGES); both are run in the same invocation.
+``--floor`` adds a node that only counts the same messages (the executor + DDS floor).
+Usage: python bench/node_load.py [--quick] [--repeat N] [--nominal-only] [--floor]
 """
 
 from __future__ import annotations
@@ -59,10 +62,12 @@ def node_status(lis: Listener) -> dict[str, str]:
     return {}
 
 
-def run_case(executor: str, js: float, imu: float, odom: float, duration: float) -> dict:
+def run_case(executor: str, js: float, imu: float, odom: float, duration: float,
+             messages: str = "raw") -> dict:
     work = Path(tmpdir())
     domain = new_domain_id()
     params = write_params(work / "p.yaml", extra=PARAMS_EXTRA)
+    os.environ["KINEMATIC_MONITOR_MESSAGES"] = messages  # start_node copies os.environ
     node = start_node(params, domain, work, executor=executor)
     lis = Listener(domain)
     try:
@@ -88,7 +93,7 @@ def run_case(executor: str, js: float, imu: float, odom: float, duration: float)
         lis.close()
     received = sum(int(v) for k, v in status.items() if k.startswith("received."))
     return {
-        "executor": executor, "rates": f"{js:g}/{imu:g}/{odom:g} Hz",
+        "executor": executor, "messages": messages, "rates": f"{js:g}/{imu:g}/{odom:g} Hz",
         "cpu_pct": 100.0 * (c1 - c0) / (t1 - t0),
         "published": published, "received": received,
         "late_dropped": status.get("late_dropped", "?"),
@@ -98,6 +103,64 @@ def run_case(executor: str, js: float, imu: float, odom: float, duration: float)
         "p99": status.get("latency_p99 [ms]", "?"),
         "errors": status.get("callback_errors", "0"),
     }
+
+
+# --- floor: the same three inputs into a node that does nothing with them -----------------
+
+FLOOR_NODE = """\
+import signal, sys, rclpy
+from rclpy.experimental import EventsExecutor
+from rclpy.node import Node
+from rclpy.qos import QoSProfile, ReliabilityPolicy
+from rclpy.signals import SignalHandlerOptions
+from rclpy.task import Future
+from nav_msgs.msg import Odometry
+from sensor_msgs.msg import Imu, JointState
+rclpy.init(signal_handler_options=SignalHandlerOptions.NO)
+node = Node("floor")
+qos = QoSProfile(depth=100, reliability=ReliabilityPolicy.BEST_EFFORT)
+n = [0]
+def cb(msg):
+    n[0] += 1
+for t, topic in ((JointState, "/joint_states"), (Imu, "/imu/data"),
+                 (Odometry, "/localization/odom")):
+    node.create_subscription(t, topic, cb, qos, raw=sys.argv[1] == "raw")
+ex = EventsExecutor()
+ex.add_node(node)
+done = Future()
+signal.signal(signal.SIGINT, lambda *a: done.set_result(1))
+print("running (floor)", flush=True)
+while not done.done():
+    ex.spin_until_future_complete(done, timeout_sec=0.25)
+print(f"received {n[0]}", flush=True)
+"""
+
+
+def run_floor(messages: str, js: float, imu: float, odom: float, duration: float) -> float:
+    """CPU % of a node that only counts the messages (EventsExecutor; raw or typed)."""
+    from dds_helpers import Proc, ros_env
+
+    work = Path(tmpdir())
+    domain = new_domain_id()
+    node = Proc([sys.executable, "-c", FLOOR_NODE, messages], ros_env(domain), work, "floor")
+    try:
+        deadline = time.monotonic() + 20
+        while "running (" not in node.output() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        pub = start_publisher(domain, work, "--duration", str(duration), "--js-rate", str(js),
+                              "--imu-rate", str(imu), "--odom-rate", str(odom))
+        deadline = time.monotonic() + 20
+        while "playing" not in pub.output() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        time.sleep(0.2 * duration)
+        c0, t0 = cpu_seconds(node.pid), time.monotonic()
+        time.sleep(0.6 * duration)
+        c1, t1 = cpu_seconds(node.pid), time.monotonic()
+        pub.wait(timeout=duration + 10)
+        pub.stop()
+    finally:
+        node.stop()
+    return 100.0 * (c1 - c0) / (t1 - t0)
 
 
 # --- core cost vs bare filterpy EKF --------------------------------------------------------
@@ -182,22 +245,46 @@ def core_cost(n_seconds: float = 20.0) -> tuple[float, float, float]:
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="shorter runs, events executor only")
+    ap.add_argument("--repeat", type=int, default=1,
+                    help="run each nominal-rate case N times, alternating raw and typed")
+    ap.add_argument("--nominal-only", action="store_true", help="only 100/200/50 Hz cases")
+    ap.add_argument("--floor", action="store_true",
+                    help="also measure a node that only counts the messages (the floor)")
     a = ap.parse_args()
     os.environ["ROS_AUTOMATIC_DISCOVERY_RANGE"] = "LOCALHOST"
     duration = 5.0 if a.quick else 8.0
-    cases = [("events", 1000, 400, 100), ("events", 100, 200, 50)]
+    cases: list[tuple[str, str, int, int, int]] = []
+    if not a.nominal_only:
+        cases += [("events", m, 1000, 400, 100) for m in ("raw", "typed")]
+    for _ in range(max(1, a.repeat)):
+        cases += [("events", m, 100, 200, 50) for m in ("raw", "typed")]
     if not a.quick:
-        cases += [("single", 1000, 400, 100), ("single", 100, 200, 50)]
+        cases += [("single", m, 100, 200, 50) for m in ("raw", "typed")]
     print("JointState/Imu/Odometry rates; latency = wall time - header stamp at reception (rx)"
           " and after the reorder window (processed)")
-    hdr = (f"{'executor':8} {'rates':>18} {'cpu %':>6} {'recv':>6} {'late':>5} "
+    hdr = (f"{'executor':8} {'msgs':5} {'rates':>18} {'cpu %':>6} {'recv':>6} {'late':>5} "
            f"{'rx p50':>7} {'rx p99':>7} {'p50 ms':>7} {'p99 ms':>7} {'errs':>4}  published")
     print(hdr)
-    for ex, js, imu, odom in cases:
-        r = run_case(ex, js, imu, odom, duration)
-        print(f"{r['executor']:8} {r['rates']:>18} {r['cpu_pct']:6.1f} {r['received']:6d} "
-              f"{r['late_dropped']:>5} {r['rx_p50']:>7} {r['rx_p99']:>7} {r['p50']:>7} "
-              f"{r['p99']:>7} {r['errors']:>4}  {r['published']}", flush=True)
+    cpu: dict[tuple[str, str, str], list[float]] = {}
+    for ex, mode, js, imu, odom in cases:
+        r = run_case(ex, js, imu, odom, duration, mode)
+        cpu.setdefault((ex, mode, r["rates"]), []).append(r["cpu_pct"])
+        print(f"{r['executor']:8} {mode:5} {r['rates']:>18} {r['cpu_pct']:6.1f} "
+              f"{r['received']:6d} {r['late_dropped']:>5} {r['rx_p50']:>7} {r['rx_p99']:>7} "
+              f"{r['p50']:>7} {r['p99']:>7} {r['errors']:>4}  {r['published']}", flush=True)
+    for (ex, mode, rates), vals in sorted(cpu.items()):
+        if mode != "raw":
+            continue
+        typed = cpu.get((ex, "typed", rates))
+        if typed:
+            med_r, med_t = sorted(vals)[len(vals) // 2], sorted(typed)[len(typed) // 2]
+            print(f"{ex} {rates}: raw {med_r:.1f} % vs typed {med_t:.1f} % of a core "
+                  f"(median of {len(vals)}; raw/typed = {med_r / max(med_t, 1e-9):.2f})")
+    if a.floor:
+        for mode in ("raw", "typed") * max(1, a.repeat):
+            pct = run_floor(mode, 100, 200, 50, duration)
+            print(f"floor (node that only counts messages, events executor, {mode}) "
+                  f"100/200/50 Hz: {pct:.1f} % of a core", flush=True)
     core_us, ekf_us, ratio = core_cost(10.0 if a.quick else 20.0)
     print(f"core Monitor.process: {core_us:.1f} us/sample; bare filterpy EKF predict+update: "
           f"{ekf_us:.1f} us/step; ratio core/filterpy = {ratio:.2f}")

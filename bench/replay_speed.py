@@ -1,7 +1,8 @@
 """Replay speed, measured side by side in one run on a simulated 10-minute drive.
 
 Prints: bare rosbags read + deserialise of every message; our bag reader alone
-(``bag.iter_samples``); the whole ``kinematic-monitor replay --no-report`` command as a
+(``bag.iter_samples``); the fused decoder (``fastpath``) beside the two-step cdr + convert
+path per message type; the whole ``kinematic-monitor replay --no-report`` command as a
 subprocess (start-up included); the report generation alone; and the ratios against the
 targets (replay <= 2x the bare read, >= 100x real time, report <= 5 s).
 
@@ -18,6 +19,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import subprocess
 import sys
@@ -69,6 +71,63 @@ def our_reader(bag: Path, params: Path) -> tuple[float, float, int]:
         for _ in src.iter_samples():
             n += 1
     return time.perf_counter() - t, time.process_time() - c, n
+
+
+def decode_compare(bag: Path, params: Path, reps: int = 3) -> list[tuple[str, int, float, float]]:
+    """Per message type: (type, count, µs two-step cdr + convert, µs fused fastpath).
+
+    Both paths run on the same in-memory CDR bytes, alternating, best of ``reps``; the
+    results are checked equal (same samples and rejections) before timing.
+    """
+    from rosbags.rosbag2 import Reader
+
+    from kinematic_monitor import cdr, convert, fastpath
+    from kinematic_monitor.bag import inputs_from_config
+    from kinematic_monitor.params import load_config
+
+    inp = inputs_from_config(load_config(params))
+    jmap = convert.JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints)
+    st = convert.stamp_seconds
+
+    def js(b: bytes) -> object:
+        f = cdr.decode_joint_state(b)
+        return convert.chassis_from_joint_state(st(f.sec, f.nanosec), f.names, f.positions,
+                                                f.velocities, jmap, inp.max_steer)
+
+    def odom(b: bytes) -> object:
+        o = cdr.decode_odometry(b)
+        return convert.localization_from_odometry(
+            st(o.sec, o.nanosec), o.frame_id, o.position, o.orientation, o.pose_covariance,
+            o.linear, o.angular, o.twist_covariance)
+
+    def imu(b: bytes) -> object:
+        i = cdr.decode_imu(b)
+        return convert.imu_from_fields(
+            st(i.sec, i.nanosec), i.orientation, i.orientation_covariance, i.angular_velocity,
+            i.angular_velocity_covariance, i.linear_acceleration,
+            i.linear_acceleration_covariance)
+
+    old = {"sensor_msgs/msg/JointState": js, "nav_msgs/msg/Odometry": odom,
+           "sensor_msgs/msg/Imu": imu}
+    data: dict[str, list[bytes]] = {}
+    with Reader(bag) as reader:
+        for conn, _ts, raw in reader.messages():
+            if conn.msgtype in old:
+                data.setdefault(conn.msgtype, []).append(bytes(raw))
+    out = []
+    for t, bufs in data.items():
+        two, new = old[t], fastpath.converter_for(t, jmap, inp.max_steer)
+        if any(repr(two(b)) != repr(new(b)) for b in bufs):
+            raise SystemExit(f"fastpath differs from cdr + convert on {t}")
+        best = {"two": math.inf, "new": math.inf}
+        for _ in range(reps):
+            for name, fn in (("two", two), ("new", new)):
+                c = time.process_time()
+                for b in bufs:
+                    fn(b)
+                best[name] = min(best[name], time.process_time() - c)
+        out.append((t, len(bufs), 1e6 * best["two"] / len(bufs), 1e6 * best["new"] / len(bufs)))
+    return out
 
 
 def core_only(bag: Path, params: Path) -> tuple[float, float]:
@@ -158,6 +217,7 @@ def main() -> int:
         if args.baseline is not None:
             base = replay_command(bag, params, tmpdir / "out_baseline", args.baseline)
         rpt_w, rpt_c, size = report_time(tmpdir / "out", bag)
+        decode = decode_compare(bag, params)
         summary = json.loads(summary_line)
         duration = float(summary["duration_s"])
 
@@ -177,6 +237,10 @@ def main() -> int:
         print(f"baseline / this: {base[0] / rep_w:.2f}x wall, "
               f"{base[1] / max(rep_c, 1e-9):.2f}x cpu; event counts "
               f"{'identical' if same else 'DIFFER'}")
+    print("decode + convert per message (cpu, same bytes in memory, results checked equal):")
+    for kind, count, two, new in decode:
+        print(f"  {kind:30s} n={count:6d}  cdr + convert {two:5.2f} us  fastpath {new:5.2f} us  "
+              f"({two / max(new, 1e-9):.1f}x)")
     per = 1e6 / max(n, 1)
     print(f"per message (cpu): bare {bare_c * per:.1f} us, reader {ours_c * per:.1f} us, "
           f"reader + monitor {core_c * per:.1f} us, replay command {rep_c * per:.1f} us")

@@ -2,9 +2,10 @@
 
 ``open_bag(path, config)`` checks the configured input topics and their types and
 returns a :class:`BagSource`; ``BagSource.iter_samples()`` streams samples (memory
-does not grow with the bag). Message bytes are decoded by :mod:`kinematic_monitor.cdr`
-(only the used fields) and converted by :mod:`kinematic_monitor.convert`; rejected
-messages are counted per topic and reason in :attr:`BagSource.stats`.
+does not grow with the bag). Message bytes are decoded (only the used fields) and
+converted in one step by :mod:`kinematic_monitor.fastpath`, with the rules and rejection
+reasons of :mod:`kinematic_monitor.convert`; rejected messages are counted per topic and
+reason in :attr:`BagSource.stats`.
 
 Ordering: a bag lists messages in receive (log) time order; header stamps of each topic
 are nearly in that order. Samples wait in a heap keyed by header stamp until the log
@@ -36,19 +37,13 @@ from typing import Any
 
 import yaml
 
-from . import cdr, fieldpath
+from . import cdr, fastpath, fieldpath
 from .convert import (
     JointMap,
     Rejected,
     ScalarInput,
     ScalarSettings,
-    chassis_from_joint_state,
     chassis_from_scalar_msg,
-    gnss_from_fields,
-    imu_from_fields,
-    localization_from_odometry,
-    localization_from_pose,
-    stamp_seconds,
 )
 from .convert import scalar_settings as convert_scalar_settings
 from .samples import Sample
@@ -517,73 +512,13 @@ class BagSource:
     # -- decoding -------------------------------------------------------------------------
 
     def _converters(self) -> dict[str, Callable[[bytes], Sample | Rejected]]:
+        """Topic -> fused decode + convert of its CDR bytes (see :mod:`.fastpath`)."""
         inp = self.inputs
         jmap = JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints) \
             if inp.joint_states else None
-        max_steer = inp.max_steer
-
-        def joint_state(buf: bytes) -> Sample | Rejected:
-            assert jmap is not None  # only used when the JointState topic is read
-            f = cdr.decode_joint_state(buf)
-            return chassis_from_joint_state(
-                stamp_seconds(f.sec, f.nanosec),
-                f.names,
-                f.positions,
-                f.velocities,
-                jmap,
-                max_steer,
-            )
-
-        def odometry(buf: bytes) -> Sample | Rejected:
-            f = cdr.decode_odometry(buf)
-            return localization_from_odometry(
-                stamp_seconds(f.sec, f.nanosec),
-                f.frame_id,
-                f.position,
-                f.orientation,
-                f.pose_covariance,
-                f.linear,
-                f.angular,
-                f.twist_covariance,
-            )
-
-        def pose(buf: bytes) -> Sample | Rejected:
-            f = cdr.decode_pose_with_covariance_stamped(buf)
-            return localization_from_pose(
-                stamp_seconds(f.sec, f.nanosec),
-                f.frame_id,
-                f.position,
-                f.orientation,
-                f.pose_covariance,
-            )
-
-        def imu(buf: bytes) -> Sample | Rejected:
-            f = cdr.decode_imu(buf)
-            return imu_from_fields(
-                stamp_seconds(f.sec, f.nanosec),
-                f.orientation,
-                f.orientation_covariance,
-                f.angular_velocity,
-                f.angular_velocity_covariance,
-                f.linear_acceleration,
-                f.linear_acceleration_covariance,
-            )
-
-        def gnss(buf: bytes) -> Sample | Rejected:
-            f = cdr.decode_navsatfix(buf)
-            return gnss_from_fields(
-                stamp_seconds(f.sec, f.nanosec), f.status, f.latitude, f.longitude, f.altitude
-            )
-
-        by_type: dict[str, Callable[[bytes], Sample | Rejected]] = {
-            JOINT_STATE: joint_state,
-            ODOMETRY: odometry,
-            POSE_COV: pose,
-            IMU: imu,
-            NAVSATFIX: gnss,
-        }
         scalar_topics = {sc.topic for sc in inp.scalars}
-        return {topic: by_type[t] for topic, t in self._used.items() if topic not in scalar_topics}
+        return {topic: fastpath.converter_for(t, jmap, inp.max_steer)
+                for topic, t in self._used.items() if topic not in scalar_topics}
 
     def _scalar_converters(self) -> dict[str, Callable[[bytes, int], Sample | Rejected]]:
         """Topic -> converter of (CDR bytes, log time [ns]) for the single-value inputs.
@@ -682,13 +617,14 @@ class BagSource:
         newest = -math.inf
         last_out = -math.inf
         err: list[str] = []
+        # topic -> (stats, fused converter of the bytes or None, receive-time stamped)
+        table = {t: (stats[t], convert.get(t), t in receive_stamped) for t in stats}
         for topic, log_ns, data in self._raw(err):
             self.position += 1
-            st = stats[topic]
+            st, fn, rstamped = table[topic]
             st.read += 1
             if progress is not None and self.position % progress_every == 0:
                 progress(self.position, self.message_count)
-            fn = convert.get(topic)
             try:
                 got = fn(data) if fn is not None else sconvert[topic](data, log_ns)
             except cdr.CdrError:
@@ -698,7 +634,7 @@ class BagSource:
                 st.rejected[got.reason] += 1
                 continue
             st.accepted += 1
-            if topic in receive_stamped:
+            if rstamped:
                 st.receive_time_stamped += 1
             stamp = got.stamp
             if stamp < newest - jump:

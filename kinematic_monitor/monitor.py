@@ -691,7 +691,7 @@ class Monitor:
         # --- drift
         self._drift_on_loc(s.stamp, pose, sp, sy, jumped)
         # --- filter
-        self._filter_on_loc(s, jumped)
+        self._filter_on_loc(s, jumped, sp, sy)
 
     def _heading_sample(self, stamp: float, yaw: float, sy: float) -> None:
         """Localisation yaw vs the IMU-integrated heading (a heading drift or yaw jump of the
@@ -836,12 +836,14 @@ class Monitor:
         self._dr_dyaw += angle_diff(self._dr[2], yaw)
         self._dr_t = stamp
 
-    def _filter_on_loc(self, s: LocalizationSample, jumped: bool) -> None:
-        from kinematic_monitor.filter import BicycleEKF, FilterNoise
-
-        sp, sy = self._loc_sigmas(s)
+    def _filter_on_loc(self, s: LocalizationSample, jumped: bool, sp: float, sy: float
+                       ) -> None:
+        """Filter update with the pose; ``sp`` [m], ``sy`` [rad] from :meth:`_loc_sigmas`."""
         cov = [[sp**2, 0.0, 0.0], [0.0, sp**2, 0.0], [0.0, 0.0, sy**2]]
         if self._ekf is None or jumped or not self._have_chassis():
+            # the filter module (numpy) is imported on the first (re)initialisation only
+            from kinematic_monitor.filter import BicycleEKF, FilterNoise
+
             try:
                 fn = FilterNoise(
                     steer_std=self.noise.steering_angle_std,

@@ -12,6 +12,12 @@ is honoured. Units and frames follow REP 103 / REP 105.
 Executor: ``rclpy.experimental.EventsExecutor`` where it exists (much cheaper per message),
 otherwise ``SingleThreadedExecutor``; choose with ``executor=`` or the environment variable
 ``KINEMATIC_MONITOR_EXECUTOR`` = ``auto`` | ``events`` | ``single``.
+
+Messages: the JointState, localisation, Imu and NavSatFix inputs are taken as serialized CDR
+bytes (raw subscriptions) and turned into samples by ``fastpath`` in one step, skipping
+rclpy's conversion into message objects; undecodable bytes are counted as 'malformed'.
+``messages=`` or ``KINEMATIC_MONITOR_MESSAGES`` = ``auto`` | ``raw`` | ``typed`` (``typed``:
+rclpy message objects and ``convert``, as the field-path inputs always use).
 """
 
 from __future__ import annotations
@@ -49,7 +55,7 @@ from rclpy.qos import (
 from rclpy.task import Future
 from sensor_msgs.msg import Imu, JointState, NavSatFix
 
-from kinematic_monitor import convert, events, ordering, params
+from kinematic_monitor import cdr, convert, events, fastpath, ordering, params
 from kinematic_monitor import ros_msgs as rm
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -59,6 +65,9 @@ NODE_NAME = "kinematic_monitor"
 EXIT_OK = 0
 EXIT_BAD_PARAMS = 2
 EXECUTOR_ENV = "KINEMATIC_MONITOR_EXECUTOR"
+#: how inputs are taken: ``raw`` (serialized bytes, decoded by fastpath: the cheap default
+#: where rclpy offers raw subscriptions) or ``typed`` (rclpy message objects)
+MESSAGES_ENV = "KINEMATIC_MONITOR_MESSAGES"
 # parameters every rclpy node has; never reported as unknown
 _ROS_BUILTIN_PARAMS = ("use_sim_time", "start_type_description_service")
 _INT_LIMIT = 2**63 - 1
@@ -172,6 +181,33 @@ def make_qos(kind: str) -> QoSProfile:
                       durability=DurabilityPolicy.VOLATILE)
 
 
+def message_mode(kind: str | None = None) -> str:
+    """'raw' or 'typed' from ``kind`` or the environment variable ``MESSAGES_ENV``.
+
+    ``auto`` (the default) is 'raw' when this rclpy's create_subscription takes ``raw=``
+    (every release since Foxy), else 'typed'. StartupError naming the variable otherwise.
+    """
+    kind = (kind or os.environ.get(MESSAGES_ENV, "auto") or "auto").lower()
+    if kind not in ("auto", "raw", "typed"):
+        raise StartupError(f"{MESSAGES_ENV}={kind!r}: expected auto, raw or typed")
+    if kind == "auto":
+        import inspect
+
+        has_raw = "raw" in inspect.signature(Node.create_subscription).parameters
+        kind = "raw" if has_raw else "typed"
+    return kind
+
+
+def _malformed_as_rejected(fused: Callable[[bytes], Any]) -> Callable[[bytes], Any]:
+    """Bytes that cannot be decoded become a counted 'malformed' rejection."""
+    def conv(buf: bytes) -> Any:
+        try:
+            return fused(buf)
+        except cdr.CdrError as exc:
+            return convert.Rejected("malformed", str(exc)[:200])
+    return conv
+
+
 def _percentile(sorted_vals: Sequence[float], q: float) -> float:
     if not sorted_vals:
         return math.nan
@@ -187,8 +223,8 @@ class KinematicMonitorNode(Node):
 
     monitor: _Monitor
 
-    def __init__(self, *, context: Any = None, console: Callable[[str], None] | None = None
-                 ) -> None:
+    def __init__(self, *, context: Any = None, console: Callable[[str], None] | None = None,
+                 messages: str | None = None) -> None:
         kwargs: dict[str, Any] = {"allow_undeclared_parameters": False,
                                   "automatically_declare_parameters_from_overrides": False}
         if context is not None:
@@ -207,6 +243,7 @@ class KinematicMonitorNode(Node):
         self._last_stamp = math.nan
         self._t0 = math.nan
         self._closed = False
+        self.message_mode = message_mode(messages)
         self._build_core()
         self._create_io()
         self.add_on_set_parameters_callback(self._on_set_parameters)
@@ -386,14 +423,24 @@ class KinematicMonitorNode(Node):
         qos = make_qos(cfg.inputs.qos)
         self._subs: list[Any] = []
 
-        def sub(msg_type: Any, topic: str, name: str, fn: Callable[[Any], Any]) -> None:
+        raw = self.message_mode == "raw"
+
+        def sub(msg_type: Any, topic: str, name: str, fn: Callable[[Any], Any],
+                fused: Callable[[bytes], Any] | None = None) -> None:
             if not topic:
                 self.get_logger().info(f"input {name}: disabled (empty topic)")
                 return
-            self._subs.append(self.create_subscription(
-                msg_type, topic, self._guarded(name, fn), qos))
+            if raw and fused is not None:
+                # serialized CDR bytes, decoded and converted in one step (fastpath)
+                self._subs.append(self.create_subscription(
+                    msg_type, topic, self._guarded(name, _malformed_as_rejected(fused)), qos,
+                    raw=True))
+            else:
+                self._subs.append(self.create_subscription(
+                    msg_type, topic, self._guarded(name, fn), qos))
             self.get_logger().info(
-                f"input {name}: {topic} ({msg_type.__name__}, {cfg.inputs.qos})")
+                f"input {name}: {topic} ({msg_type.__name__}, {cfg.inputs.qos}, "
+                f"{'raw' if raw and fused is not None else 'typed'} messages)")
 
         jmap = self.joint_map
         if jmap is None:
@@ -401,7 +448,8 @@ class KinematicMonitorNode(Node):
                                    "inputs.speed replace it)")
         else:
             sub(JointState, self._joint_states_topic, "joint_states",
-                lambda m: convert.chassis_from_msg(m, jmap, self._max_steer))
+                lambda m: convert.chassis_from_msg(m, jmap, self._max_steer),
+                fastpath.joint_state_converter(jmap, self._max_steer))
         for topic, planned in self._scalar_inputs.items():
             name = "+".join(i.settings.role for i in planned)
             sub(self._scalar_classes[topic], topic, name, self._scalar_callback(topic, name))
@@ -416,17 +464,19 @@ class KinematicMonitorNode(Node):
         loc = cfg.inputs.localization
         if loc.type == "pose_with_covariance":
             sub(PoseWithCovarianceStamped, loc.topic, "localization",
-                convert.localization_from_pose_msg)
+                convert.localization_from_pose_msg, fastpath.pose_sample)
         else:
-            sub(Odometry, loc.topic, "localization", convert.localization_from_odometry_msg)
+            sub(Odometry, loc.topic, "localization", convert.localization_from_odometry_msg,
+                fastpath.odometry_sample)
         if loc.reset_topic:
             # any message on the reset topic declares a deliberate relocalisation (REP 105:
             # map may jump); the message type is taken to be a stamped pose, as /initialpose
             self._subs.append(self.create_subscription(
                 PoseWithCovarianceStamped, loc.reset_topic,
                 self._guarded("localization_reset", self._on_reset), 10))
-        sub(Imu, cfg.inputs.imu.topic, "imu", convert.imu_from_msg)
-        sub(NavSatFix, cfg.inputs.gnss.topic, "gnss", convert.gnss_from_msg)
+        sub(Imu, cfg.inputs.imu.topic, "imu", convert.imu_from_msg, fastpath.imu_sample)
+        sub(NavSatFix, cfg.inputs.gnss.topic, "gnss", convert.gnss_from_msg,
+            fastpath.navsatfix_sample)
 
         self.pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
         self.pub_prediction = self.create_publisher(Odometry, "~/prediction", 10)
@@ -466,6 +516,7 @@ class KinematicMonitorNode(Node):
     def _ingest(self, name: str, result: Any) -> None:
         if isinstance(result, convert.Rejected):
             self.counters[f"rejected.{name}"] += 1
+            self.counters[f"rejected.{name}.{result.reason}"] += 1
             self.get_logger().warning(f"input {name}: rejected: {result.reason}",
                                       throttle_duration_sec=5.0)
             return
@@ -564,6 +615,7 @@ class KinematicMonitorNode(Node):
             "receive_latency_p99 [ms]": 1e3 * _percentile(rx, 0.99),
             "latency_p50 [ms]": 1e3 * _percentile(lat, 0.5),
             "latency_p99 [ms]": 1e3 * _percentile(lat, 0.99),
+            "latency_max [ms]": 1e3 * lat[-1] if lat else math.nan,
             "reorder_window [s]": self.buffer.lag,
             "late_dropped": self.buffer.late_dropped,
             "duplicates_dropped": getattr(self.buffer, "duplicates", 0),
