@@ -84,6 +84,8 @@ class BagInputs:
     imu: str = "/imu/data"
     gnss: str = "/gnss/fix"
     max_steer: float = math.pi / 2  # [rad] largest physical road-wheel angle
+    # steer joints report steering-wheel angles when != 1 (divided at conversion)
+    steering_ratio: float = 1.0
     # steering / speed from other message types (inputs.steering.*, inputs.speed.*)
     scalars: tuple[ScalarSettings, ...] = ()
 
@@ -151,6 +153,7 @@ def inputs_from_config(config: Any) -> BagInputs:
         imu=str(get("inputs.imu.topic", base.imu)),
         gnss=str(get("inputs.gnss.topic", base.gnss)),
         max_steer=float(get("vehicle.max_road_wheel_angle", base.max_steer)),
+        steering_ratio=float(get("vehicle.steering_ratio", base.steering_ratio)),
         scalars=scalars,
     )
     if "steering" in roles:
@@ -514,8 +517,8 @@ class BagSource:
     def _converters(self) -> dict[str, Callable[[bytes], Sample | Rejected]]:
         """Topic -> fused decode + convert of its CDR bytes (see :mod:`.fastpath`)."""
         inp = self.inputs
-        jmap = JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints) \
-            if inp.joint_states else None
+        jmap = JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints,
+                        steering_ratio=inp.steering_ratio) if inp.joint_states else None
         scalar_topics = {sc.topic for sc in inp.scalars}
         return {topic: fastpath.converter_for(t, jmap, inp.max_steer)
                 for topic, t in self._used.items() if topic not in scalar_topics}

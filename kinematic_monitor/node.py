@@ -374,9 +374,12 @@ class KinematicMonitorNode(Node):
         self.joint_map = convert.JointMap(
             () if "steering" in roles else js.steering_joints,
             () if "speed" in roles else js.front_wheel_joints,
-            () if "speed" in roles else js.rear_wheel_joints) if self._joint_states_topic \
+            () if "speed" in roles else js.rear_wheel_joints,
+            steering_ratio=cfg.vehicle.steering_ratio) if self._joint_states_topic \
             else None
-        self._max_steer = cfg.vehicle.max_road_wheel_angle * cfg.vehicle.steering_ratio
+        # converters divide steering-wheel angles by the ratio first: the limit is on the
+        # road-wheel angle
+        self._max_steer = cfg.vehicle.max_road_wheel_angle
         path = cfg.output.events_log
         self.event_log: events.EventLogWriter | None = None
         if path:

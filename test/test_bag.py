@@ -397,3 +397,14 @@ def test_steering_input_keeps_joint_state_wheels(tmp_path: Path) -> None:
     assert len(from_js) == 100 and len(from_float) == 100
     assert all(math.isnan(s.steer_left) and math.isnan(s.steer) for s in from_js)
     assert from_js[0].wheel_rear_left == 30.0 and from_float[0].steer == 0.02
+
+
+def test_steering_wheel_angles_divided_by_the_ratio(tmp_path: Path) -> None:
+    # vehicle.steering_ratio != 1: the steer joints report steering-wheel angles, and the
+    # reader hands the core road-wheel angles (steering ratio = steering-wheel angle per
+    # road-wheel angle, SAE J670 vocabulary); the live node uses the same JointMap rule
+    bag = write_bag(tmp_path / "b", StoragePlugin.SQLITE3, seconds=0.5)
+    config = {"inputs": {"gnss": {"topic": ""}}, "vehicle": {"steering_ratio": 2.5}}
+    with open_bag(bag, config) as src:
+        chassis = [s for s in src.iter_samples() if isinstance(s, ChassisSample)]
+    assert chassis and all(s.steer_left == pytest.approx(0.05 / 2.5) for s in chassis)
