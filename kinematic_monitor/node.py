@@ -238,6 +238,7 @@ class KinematicMonitorNode(Node):
         self._rx_latency: deque[float] = deque(maxlen=_LATENCY_WINDOW)
         self._latency: deque[float] = deque(maxlen=_LATENCY_WINDOW)
         self._last_levels: tuple[Any, ...] | None = None
+        self._level_signature: tuple[tuple[str, int], ...] | None = None
         self._last_level_check = 0.0
         self._last_prediction_stamp = -math.inf
         self._last_stamp = math.nan
@@ -340,6 +341,7 @@ class KinematicMonitorNode(Node):
             self._handle_transitions()
         self.monitor = Monitor(config)
         self._last_levels = None
+        self._level_signature = None
         self.get_logger().info("monitor restarted with the new thresholds")
 
     def _report_parameters(self) -> None:
@@ -639,15 +641,16 @@ class KinematicMonitorNode(Node):
         """Publish /diagnostics now (one status per check)."""
         sts = self.statuses()
         self._last_levels = tuple(rm.status_level(s) for s in sts)
+        self._level_signature = self._levels()
         self.pub_diag.publish(rm.diagnostic_array(sts, self.get_clock().now().to_msg()))
 
-    def _levels(self) -> tuple[Any, ...]:
-        return tuple(rm.status_level(s) for s in self.monitor.statuses())
+    def _levels(self) -> tuple[tuple[str, int], ...]:
+        # the monitor's levels as numbers: far cheaper than building every status's text,
+        # and this runs at up to 1 / _LEVEL_CHECK_PERIOD Hz
+        return tuple(self.monitor.series_values()[0].items())
 
     def _maybe_publish_on_level_change(self) -> None:
-        levels = self._levels()
-        last = self._last_levels[:-1] if self._last_levels is not None else None
-        if levels != last:
+        if self._levels() != self._level_signature:
             self.publish_diagnostics()
 
     def _on_diag_timer(self) -> None:
