@@ -234,6 +234,48 @@ class Listener:
 
 # --- publisher process --------------------------------------------------------------------
 
+
+# --- one test's processes ------------------------------------------------------------------
+
+# params tail used by most node tests: no GNSS input, events log in the node's folder
+EVENTS_LOG_NO_GNSS = """\
+    inputs:
+      gnss:
+        topic: ""
+    output:
+      events_log: "events.jsonl"
+"""
+
+
+class DdsRun:
+    """Processes and listener of one test on a fresh domain; ``close`` stops them all."""
+
+    def __init__(self, tmp: Path) -> None:
+        self.tmp = tmp
+        self.domain = new_domain_id()
+        self.procs: list[Proc] = []
+        self.listener: Listener | None = None
+
+    def node(self, params: str | os.PathLike[str], executor: str = "auto") -> Proc:
+        p = start_node(params, self.domain, self.tmp, executor=executor)
+        self.procs.append(p)
+        return p
+
+    def publisher(self, *args: str) -> Proc:
+        p = start_publisher(self.domain, self.tmp, *args)
+        self.procs.append(p)
+        return p
+
+    def listen(self) -> Listener:
+        self.listener = Listener(self.domain)
+        return self.listener
+
+    def close(self) -> None:
+        for p in self.procs:
+            p.stop(grace=2.0)
+        if self.listener is not None:
+            self.listener.close()
+
 def _publish_main(argv: Sequence[str]) -> int:
     """Play an invented straight drive at steady speed into the monitor's inputs.
 

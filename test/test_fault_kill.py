@@ -24,44 +24,20 @@ import pytest
 pytest.importorskip("rclpy")
 
 from dds_helpers import (  # noqa: E402
+    EVENTS_LOG_NO_GNSS,
+    DdsRun,
     Proc,
-    new_domain_id,
-    start_node,
-    start_publisher,
     write_params,
 )
 
 pytestmark = pytest.mark.dds
 
-EXTRA = """\
-    inputs:
-      gnss:
-        topic: ""
-    output:
-      events_log: "events.jsonl"
-"""
+class Procs(DdsRun):
+    """The node under test always runs with the events log and no GNSS."""
 
-
-class Procs:
-    def __init__(self, tmp: Path) -> None:
-        self.tmp = tmp
-        self.domain = new_domain_id()
-        self.all: list[Proc] = []
-
-    def node(self, executor: str) -> Proc:
-        p = start_node(write_params(self.tmp / "p.yaml", extra=EXTRA), self.domain, self.tmp,
-                       executor=executor)
-        self.all.append(p)
-        return p
-
-    def publisher(self, *args: str) -> Proc:
-        p = start_publisher(self.domain, self.tmp, *args)
-        self.all.append(p)
-        return p
-
-    def close(self) -> None:
-        for p in self.all:
-            p.stop(grace=2.0)
+    def node(self, executor: str = "auto") -> Proc:  # type: ignore[override]
+        return super().node(write_params(self.tmp / "p.yaml", extra=EVENTS_LOG_NO_GNSS),
+                            executor=executor)
 
 
 @pytest.fixture

@@ -29,12 +29,10 @@ import yaml
 pytest.importorskip("rclpy")
 
 from dds_helpers import (  # noqa: E402  (after the importorskip)
+    EVENTS_LOG_NO_GNSS,
     REPO,
-    Listener,
+    DdsRun,
     Proc,
-    new_domain_id,
-    start_node,
-    start_publisher,
     write_params,
 )
 
@@ -43,43 +41,8 @@ pytestmark = pytest.mark.dds
 OK, WARN, ERROR, STALE = 0, 1, 2, 3  # REP 107 / diagnostic_msgs/DiagnosticStatus
 HAVE_CORE = importlib.util.find_spec("kinematic_monitor.monitor") is not None
 needs_core = pytest.mark.skipif(not HAVE_CORE, reason="kinematic_monitor.monitor missing")
-TEST_EXTRA = """\
-    inputs:
-      gnss:
-        topic: ""
-    output:
-      events_log: "events.jsonl"
-"""
-
-
-class Run:
-    """Processes and listener of one test; everything is stopped in ``close``."""
-
-    def __init__(self, tmp: Path) -> None:
-        self.tmp = tmp
-        self.domain = new_domain_id()
-        self.procs: list[Proc] = []
-        self.listener: Listener | None = None
-
-    def node(self, params: Path, executor: str = "auto") -> Proc:
-        p = start_node(params, self.domain, self.tmp, executor=executor)
-        self.procs.append(p)
-        return p
-
-    def publisher(self, *args: str) -> Proc:
-        p = start_publisher(self.domain, self.tmp, *args)
-        self.procs.append(p)
-        return p
-
-    def listen(self) -> Listener:
-        self.listener = Listener(self.domain)
-        return self.listener
-
-    def close(self) -> None:
-        for p in self.procs:
-            p.stop(grace=2.0)
-        if self.listener is not None:
-            self.listener.close()
+TEST_EXTRA = EVENTS_LOG_NO_GNSS
+Run = DdsRun
 
 
 @pytest.fixture
