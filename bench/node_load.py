@@ -29,14 +29,15 @@ sys.path.insert(0, str(REPO))
 
 from dds_helpers import (  # noqa: E402
     Listener,
+    cpu_seconds,
     new_domain_id,
+    node_status,
     start_node,
     start_publisher,
     tmpdir,
     write_params,
 )
 
-CLK_TCK = os.sysconf("SC_CLK_TCK")
 PARAMS_EXTRA = """\
     inputs:
       gnss:
@@ -44,22 +45,6 @@ PARAMS_EXTRA = """\
     output:
       events_log: "events.jsonl"
 """
-
-
-def cpu_seconds(pid: int) -> float:
-    """utime + stime of a process [s] from /proc/<pid>/stat (fields 14 and 15)."""
-    with open(f"/proc/{pid}/stat") as f:
-        fields = f.read().rsplit(")", 1)[1].split()
-    return (int(fields[11]) + int(fields[12])) / CLK_TCK
-
-
-def node_status(lis: Listener) -> dict[str, str]:
-    """Key-values of the latest 'kinematic_monitor: node' status."""
-    for arr in reversed(lis.diagnostics):
-        for s in arr.status:
-            if s.name == "kinematic_monitor: node":
-                return {kv.key: kv.value for kv in s.values}
-    return {}
 
 
 def run_case(executor: str, js: float, imu: float, odom: float, duration: float,

@@ -19,7 +19,6 @@ Usage: python bench/soak.py [--minutes 10] [--rate-factor 10]
 from __future__ import annotations
 
 import argparse
-import os
 import statistics
 import sys
 import time
@@ -31,7 +30,11 @@ sys.path.insert(0, str(REPO))
 
 from dds_helpers import (  # noqa: E402
     Listener,
+    cpu_seconds,
     new_domain_id,
+    node_status,
+    numeric_values,
+    rss_kib,
     start_node,
     start_publisher,
     tmpdir,
@@ -47,38 +50,11 @@ PARAMS_EXTRA = """\
       events_log: "events.jsonl"
       diagnostics_period: 0.5
 """
-CLK_TCK = os.sysconf("SC_CLK_TCK")
-
-
-def rss_kib(pid: int) -> int:
-    """Resident set size [KiB] of a process (VmRSS in /proc/<pid>/status)."""
-    with open(f"/proc/{pid}/status") as f:
-        for line in f:
-            if line.startswith("VmRSS:"):
-                return int(line.split()[1])
-    raise RuntimeError(f"no VmRSS for pid {pid}")
-
-
-def cpu_seconds(pid: int) -> float:
-    """utime + stime [s] of a process (/proc/<pid>/stat fields 14 and 15)."""
-    with open(f"/proc/{pid}/stat") as f:
-        fields = f.read().rsplit(")", 1)[1].split()
-    return (int(fields[11]) + int(fields[12])) / CLK_TCK
 
 
 def node_values(lis: Listener) -> dict[str, float]:
     """Numeric key-values of the latest node status."""
-    for arr in reversed(lis.diagnostics):
-        for s in arr.status:
-            if s.name == "kinematic_monitor: node":
-                out: dict[str, float] = {}
-                for kv in s.values:
-                    try:
-                        out[kv.key] = float(kv.value)
-                    except ValueError:
-                        pass
-                return out
-    return {}
+    return numeric_values(node_status(lis))
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -276,6 +276,47 @@ class DdsRun:
         if self.listener is not None:
             self.listener.close()
 
+
+# --- process figures and the node's own status -----------------------------------------------
+
+CLK_TCK = os.sysconf("SC_CLK_TCK")
+
+
+def cpu_seconds(pid: int) -> float:
+    """utime + stime of a process [s] from /proc/<pid>/stat (fields 14 and 15, proc(5))."""
+    with open(f"/proc/{pid}/stat") as f:
+        fields = f.read().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / CLK_TCK
+
+
+def rss_kib(pid: int) -> int:
+    """Resident set size [KiB] of a process (VmRSS in /proc/<pid>/status, proc(5))."""
+    with open(f"/proc/{pid}/status") as f:
+        for line in f:
+            if line.startswith("VmRSS:"):
+                return int(line.split()[1])
+    raise RuntimeError(f"no VmRSS for pid {pid}")
+
+
+def node_status(lis: Listener, name: str = "kinematic_monitor: node") -> dict[str, str]:
+    """Key-values of the latest status called ``name`` that ``lis`` heard on /diagnostics."""
+    for arr in reversed(lis.diagnostics):
+        for s in arr.status:
+            if s.name == name:
+                return {kv.key: kv.value for kv in s.values}
+    return {}
+
+
+def numeric_values(values: dict[str, str]) -> dict[str, float]:
+    """The key-values that parse as numbers."""
+    out: dict[str, float] = {}
+    for key, text in values.items():
+        try:
+            out[key] = float(text)
+        except ValueError:
+            pass
+    return out
+
 def _publish_main(argv: Sequence[str]) -> int:
     """Play an invented straight drive at steady speed into the monitor's inputs.
 

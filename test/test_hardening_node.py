@@ -30,7 +30,15 @@ import pytest
 
 pytest.importorskip("rclpy")
 
-from dds_helpers import Listener, Proc, new_domain_id, start_node, write_params  # noqa: E402
+from dds_helpers import (  # noqa: E402
+    Listener,
+    Proc,
+    new_domain_id,
+    node_status,
+    numeric_values,
+    start_node,
+    write_params,
+)
 
 pytestmark = pytest.mark.dds
 
@@ -136,17 +144,7 @@ class Script:
 
     # --- reading the node's diagnostics ---
     def values(self) -> dict[str, float]:
-        for arr in reversed(self.lis.diagnostics):
-            for s in arr.status:
-                if s.name == NODE:
-                    out = {}
-                    for kv in s.values:
-                        try:
-                            out[kv.key] = float(kv.value)
-                        except ValueError:
-                            pass
-                    return out
-        return {}
+        return numeric_values(node_status(self.lis, NODE))
 
     def levels(self) -> dict[str, int]:
         for arr in reversed(self.lis.diagnostics):
