@@ -50,6 +50,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
+from typing import Any
 
 import numpy as np
 
@@ -152,11 +153,36 @@ def _innovation(residual: np.ndarray, covariance: np.ndarray, nis: float, dof: i
 def _cov3(name: str, cov: object) -> tuple[float, float, float, float, float, float]:
     """Unique entries (r00, r01, r02, r11, r12, r22) of a validated 3x3 covariance.
 
-    Fast path: a float64 array that is exactly symmetric with finite entries and a
-    non-negative diagonal; anything else goes through :func:`_cov_flat`.
+    Fast paths: a float64 array or nested lists/tuples of plain floats that are exactly
+    symmetric with finite entries and a non-negative diagonal; anything else goes through
+    :func:`_cov_flat`.
     """
-    if type(cov) is np.ndarray and cov.dtype is _F64 and cov.shape == (3, 3):
-        a, b, c, d, e, f, g, h, i = cov.ravel().tolist()
+    t = type(cov)
+    if t is list or t is tuple:
+        # nested lists of plain floats (the monitor's diagonal covariance): no array needed;
+        # float(np.float64(v)) == v, so this gives the same entries as the array path
+        rows: Any = cov
+        if len(rows) == 3 and all(type(r) in (list, tuple) and len(r) == 3 for r in rows):
+            (a, b, c), (d, e, f), (g, h, i) = rows
+            if (
+                all(type(v) is float for v in (a, b, c, d, e, f, g, h, i))
+                and b == d
+                and c == g
+                and f == h
+                and 0.0 <= a < _INF
+                and 0.0 <= e < _INF
+                and 0.0 <= i < _INF
+                and -_INF < b < _INF
+                and -_INF < c < _INF
+                and -_INF < f < _INF
+            ):
+                return a, b, c, e, f, i
+    elif t is np.ndarray:
+        arr: Any = cov
+        if arr.dtype is not _F64 or arr.shape != (3, 3):
+            a, b, c, _, e, f, _, _, i = _cov_flat(name, cov, 3)
+            return a, b, c, e, f, i
+        a, b, c, d, e, f, g, h, i = arr.ravel().tolist()
         if (
             b == d
             and c == g

@@ -394,8 +394,8 @@ class Monitor:
                 self.counters["rejected_nan"] += 1
                 return
         elif kind == _LOC:
-            if not (isfinite(s.x) and isfinite(s.y) and isfinite(s.yaw)) or any(
-                    not isfinite(v) for v in s.pose_cov):
+            if not (isfinite(s.x) and isfinite(s.y) and isfinite(s.yaw)
+                    and all(map(isfinite, s.pose_cov))):
                 self.counters["rejected_nan"] += 1
                 return
         elif kind == _GNSS:
@@ -562,10 +562,59 @@ class Monitor:
         self._imu = s
         self._yaw_rate_imu = rate
         speed = self._speed
-        self._ay = s.ay if isfinite(s.ay) else (
-            speed * rate if isfinite(speed) else math.nan)
-        if isfinite(self._delta) and isfinite(speed):
-            self._add_yaw_residual(rate, self.noise.imu_yaw_rate_std)
+        ay = s.ay
+        ay_fin = isfinite(ay)
+        if not ay_fin:
+            ay = speed * rate if isfinite(speed) else math.nan
+            ay_fin = isfinite(ay)
+        self._ay = ay
+        delta = self._delta
+        if not (isfinite(delta) and isfinite(speed)):
+            return
+        # _add_yaw_residual(rate, imu_yaw_rate_std) inlined (most frequent sample type):
+        # the same operations in the same order, so the same floats
+        d = delta
+        if self.understeer != 0.0 and ay_fin:
+            d -= self.understeer * ay
+        if d != self._curv_delta:
+            self._curv_delta = d
+            # model.curvature(d, p) = cos(model.sideslip(d, p)) * tan(d) / L, inlined
+            wb = self.p.wheelbase
+            tan_d = math.tan(d)
+            self._curv = math.cos(math.atan(self.p.cg_to_rear_axle * tan_d / wb)) * tan_d / wb
+        kin_speed = speed
+        if self._rear_slipping:
+            g = self._ground_speed()
+            if isfinite(g):
+                kin_speed = g
+        kin = kin_speed * self._curv
+        self._kin_rate = kin
+        self._meas_rate = rate
+        # checks.yaw_rate_sigma(speed, delta, L, σ_imu, σ_δ, σ_v pair, kin, 0.0)
+        wheelbase = self.p.wheelbase
+        c = math.cos(delta)
+        abs_v = abs(speed)
+        d_delta = abs_v / (wheelbase * c * c)
+        d_v = abs(kin) / max(abs_v, 0.1)
+        noise = math.sqrt(self.noise.imu_yaw_rate_std**2
+                          + (d_delta * self.noise.steering_angle_std) ** 2
+                          + (d_v * self._sig_v_pair) ** 2
+                          + (0.0 * kin) ** 2)
+        ay_abs = abs(ay) if ay_fin else abs(rate * speed)
+        allow = (self.model_rel * abs(kin) + self.yaw_tol + self._lag_allow
+                 + abs_v / wheelbase * self.us_tol * ay_abs)
+        self._yaw_allow = allow
+        if abs_v >= self.min_speed:
+            moving = True
+        else:
+            g = self._ground_speed()
+            moving = isfinite(g) and abs(g) >= self.min_speed
+        acc = self._acc["yaw_rate"]
+        acc.n += 1
+        acc.s += rate - kin
+        acc.noise_var += noise**2
+        acc.allowance += allow
+        acc.all_active = acc.all_active and moving
 
     def _imu_fresh(self) -> bool:
         t = self.last_seen["imu"]
@@ -642,37 +691,42 @@ class Monitor:
                 nis_jump = min(nis_jump, nis_m)
             self._jump.warn, self._jump.error = self._jump_thresholds(
                 max(1, round(self.loc_rate_guess)))
+            jump_pos = math.hypot(lon, lat)
             f = self._figures["localization"]
-            f.update({"jump_position [m]": math.hypot(lon, lat), "jump_heading [rad]": dyaw,
-                      "jump_nis [-]": nis_jump, "jump_nis_warn [-]": self._jump.warn})
+            f["jump_position [m]"] = jump_pos
+            f["jump_heading [rad]"] = dyaw
+            f["jump_nis [-]"] = nis_jump
+            f["jump_nis_warn [-]"] = self._jump.warn
             declared = self._declared_reset_t >= t0 or (sp < 0.5 * sp0)
             if nis_jump >= self._jump.warn:
                 jumped = True
                 if declared:
                     self.counters["relocalizations"] += 1
                     self.notes.append((s.stamp, f"relocalisation declared: jumped "
-                                       f"{math.hypot(lon, lat):.2f} m (note, not a fault)"))
+                                       f"{jump_pos:.2f} m (note, not a fault)"))
                     self.counters["notes"] += 1
                     nis_jump = 0.0
             out = self._jump.update(nis_jump, s.stamp)
-            self._handle("localization", out, s.stamp,
-                         extra={"loc_jump": math.hypot(lon, lat)})
-            if dt > 0 and not jumped and not _fin(meas_rate):
+            self._handle("localization", out, s.stamp, extra={"loc_jump": jump_pos})
+            if dt > 0 and not jumped and not isfinite(meas_rate):
                 self._yaw_rate_loc = dyaw / dt + rate
-        vy_prev = s.vy - self.ref_x * (meas_rate if _fin(meas_rate) else 0.0)
+        meas_fin = isfinite(meas_rate)
+        vy_prev = s.vy - self.ref_x * (meas_rate if meas_fin else 0.0)
         self._loc_prev = (s.stamp, pose[0], pose[1], pose[2], sp, s.vx, vy_prev)
         self._loc = s
         self._heading_sample(s.stamp, s.yaw, sy)
-        if _fin(s.vx, s.vy):
+        vel_fin = isfinite(s.vx) and isfinite(s.vy)
+        if vel_fin:
             self._ground = (s.stamp, math.copysign(math.hypot(s.vx, s.vy), s.vx))
+        have_chassis = isfinite(self._delta) and isfinite(self._speed)
         # --- yaw rate from localisation when no IMU
-        if _fin(meas_rate) and self._have_chassis() and not self._imu_fresh():
+        if meas_fin and have_chassis and not self._imu_fresh():
             sig = self.noise.localization_velocity_std / max(self.p.track_width, 1.0)
             self._add_yaw_residual(meas_rate, max(sig, self.noise.imu_yaw_rate_std))
         # --- sideslip and wheel slip from the body velocity
-        if _fin(s.vx, s.vy) and self._have_chassis():
-            rate_m = meas_rate if _fin(meas_rate) else self._yaw_rate_imu
-            vy_cg = s.vy - self.ref_x * (rate_m if _fin(rate_m) else 0.0)
+        if vel_fin and isfinite(self._delta) and isfinite(self._speed):
+            rate_m = meas_rate if meas_fin else self._yaw_rate_imu
+            vy_cg = s.vy - self.ref_x * (rate_m if isfinite(rate_m) else 0.0)
             vx = s.vx
             moving = self._moving() and abs(vx) >= self.min_speed
             beta_m = math.atan2(vy_cg, vx) if vx >= 0 else math.atan2(-vy_cg, -vx)
@@ -680,13 +734,14 @@ class Monitor:
             sv = self.noise.localization_velocity_std
             noise = (sv / max(abs(vx), self.min_speed, 0.1)) ** 2 + (
                 self.p.cg_to_rear_axle / self.p.wheelbase * self.noise.steering_angle_std) ** 2
-            ay = abs(self._ay) if _fin(self._ay) else (
-                abs(vx * rate_m) if _fin(rate_m) else 0.0)
+            ay = abs(self._ay) if isfinite(self._ay) else (
+                abs(vx * rate_m) if isfinite(rate_m) else 0.0)
             allow = self.model_rel * abs(beta_k) + self.beta_tol + self.beta_ay_tol * ay
             self._beta_allow = allow
             self._acc["sideslip"].add(beta_m - beta_k, noise, allow, moving)
-            self._figures["sideslip"].update({"sideslip_measured [rad]": beta_m,
-                                              "sideslip_kinematic [rad]": beta_k})
+            f = self._figures["sideslip"]
+            f["sideslip_measured [rad]"] = beta_m
+            f["sideslip_kinematic [rad]"] = beta_k
             self._slip_sample(vx, vy_cg, rate_m, moving)
         # --- drift
         self._drift_on_loc(s.stamp, pose, sp, sy, jumped)

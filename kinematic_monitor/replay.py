@@ -75,6 +75,10 @@ def _progress_enabled() -> bool:
         return False
 
 
+_isfinite = math.isfinite
+_hypot = math.hypot
+
+
 def _bicycle_steer(s: ChassisSample) -> float:
     """Bicycle-equivalent road-wheel angle [rad]: cot d = (cot dl + cot dr)/2 (Ackermann)."""
     if math.isfinite(s.steer):
@@ -171,6 +175,7 @@ class _Recorder:
     def __init__(self, monitor: Any, fh: Any, interval: float, warmup: float = 30.0,
                  keep_rows: bool = False) -> None:
         self.monitor = monitor
+        self._process = monitor.process
         self.fh = fh
         self.interval = interval
         self.warmup = warmup
@@ -194,28 +199,28 @@ class _Recorder:
 
     def feed(self, sample: Any) -> None:
         stamp = sample.stamp
-        self.monitor.process(sample)
+        self._process(sample)
         self.samples += 1
-        if not math.isfinite(self.first):
+        if not _isfinite(self.first):
             self.first = stamp
         if not (stamp <= self.last):
             self.last = stamp
         cls = type(sample)
         if cls is ImuSample or (cls is not ChassisSample and isinstance(sample, ImuSample)):
             ax, ay = sample.ax, sample.ay
-            if math.isfinite(ax) and math.isfinite(ay):
-                a = math.hypot(ax, ay)
+            if _isfinite(ax) and _isfinite(ay):
+                a = _hypot(ax, ay)
                 if not (a <= self.accel):
                     self.accel = a
         elif isinstance(sample, ChassisSample):
             self.steer = _bicycle_steer(sample)
         elif isinstance(sample, LocalizationSample):
-            speed = (math.hypot(sample.vx, sample.vy) if math.isfinite(sample.vy)
+            speed = (_hypot(sample.vx, sample.vy) if _isfinite(sample.vy)
                      else abs(sample.vx))
             self.loc = (sample.x, sample.y, sample.yaw, speed)
         if stamp >= self.next_row:
             # rows on a regular grid of header-stamp time (no drift from sample spacing)
-            if math.isfinite(self.next_row) and self.interval > 0.0:
+            if _isfinite(self.next_row) and self.interval > 0.0:
                 steps = math.floor((stamp - self.next_row) / self.interval) + 1
                 self.next_row += steps * self.interval
             else:
@@ -439,9 +444,12 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
         result.counters = _counters(monitor, source)
 
         from kinematic_monitor.report import drive_distance
-        from kinematic_monitor.timeseries import read_timeseries
+        from kinematic_monitor.timeseries import read_columns, read_timeseries
 
-        series = read_timeseries(outdir.temp_path(TIMESERIES_CSV))
+        if report:
+            series = read_timeseries(outdir.temp_path(TIMESERIES_CSV))
+        else:  # the distance needs two columns only
+            series = read_columns(outdir.temp_path(TIMESERIES_CSV), ("time", "speed"))
         result.distance = drive_distance(series)
         if report:
             from kinematic_monitor.report import ReportData, render_report

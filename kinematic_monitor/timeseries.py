@@ -94,27 +94,33 @@ class TimeseriesWriter:
         if math.isfinite(accel) and not (abs(accel) <= abs(self._accel)):
             self._accel = accel
         if residuals:
+            chan_index = self._chan_index
+            res = self._res
+            isfinite = math.isfinite
             for name, value in residuals.items():
-                j = self._chan_index.get(name)
+                j = chan_index.get(name)
                 if j is None:
                     self.ignored += 1
                     continue
-                if math.isfinite(value) and not (abs(value) <= abs(self._res[j])):
-                    self._res[j] = value
+                if isfinite(value) and not (abs(value) <= abs(res[j])):
+                    res[j] = value
         if levels:
+            check_index = self._check_index
+            lev = self._lev
             for name, level in levels.items():
-                k = self._check_index.get(name)
+                k = check_index.get(name)
                 if k is None:
                     self.ignored += 1
                     continue
-                if level > self._lev[k]:
-                    self._lev[k] = int(level)
+                if level > lev[k]:
+                    lev[k] = int(level)
 
     def _flush_row(self) -> None:
         b = self._base
         b[6] = self._accel
-        row = [f"{b[0]:.6f}"] + [_fmt(v) for v in b[1:]]
-        row += [_fmt(v) for v in self._res]
+        isfinite = math.isfinite  # _fmt inlined: one call fewer per value
+        row = [f"{b[0]:.6f}"] + [f"{v:.6g}" if isfinite(v) else "nan" for v in b[1:]]
+        row += [f"{v:.6g}" if isfinite(v) else "nan" for v in self._res]
         row += [str(v) for v in self._lev]
         row.append(str(max(self._lev, default=0)))
         self._writer.writerow(row)
@@ -164,6 +170,33 @@ def read_timeseries(path: str | Path) -> Series:
             return Series({})
         rows = list(reader)
     return series_from_rows(header, rows)
+
+
+def read_columns(path: str | Path, names: Sequence[str]) -> Series:
+    """Read only the columns ``names`` of a CSV written by ``TimeseriesWriter``.
+
+    Same values as the same columns of :func:`read_timeseries` (rows of the wrong length
+    skipped, missing values NaN), without converting the other columns; a name the file
+    does not hold is left out.
+    """
+    with open(path, encoding="utf-8", newline="") as fh:
+        reader = csv.reader(fh)
+        try:
+            header = next(reader)
+        except StopIteration:
+            return Series({})
+        width = len(header)
+        index = {h: j for j, h in enumerate(header)}
+        wanted = [(n, index[n]) for n in dict.fromkeys(names) if n in index]
+        cols: list[list[float]] = [[] for _ in wanted]
+        nan = math.nan
+        for row in reader:
+            if len(row) != width:
+                continue
+            for col, (_, j) in zip(cols, wanted, strict=True):
+                v = row[j]
+                col.append(float(v) if v not in ("", "nan") else nan)
+    return Series({n: np.array(col) for (n, _), col in zip(wanted, cols, strict=True)})
 
 
 def series_from_rows(header: Sequence[str], rows: Iterable[Sequence[str]]) -> Series:
