@@ -40,8 +40,12 @@ def _load(module_path: str):  # type: ignore[no-untyped-def]
     return importlib.import_module(module_path)
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The top-level parser with every available subcommand."""
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The top-level parser with every available subcommand, or just ``only``.
+
+    Building a subcommand imports its module; a run of one subcommand imports only that
+    one, so start-up stays short (``replay`` does not pay for the simulator or Dask).
+    """
     parser = argparse.ArgumentParser(
         prog="kinematic-monitor",
         description=(
@@ -53,6 +57,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, module_path in SUBCOMMANDS.items():
+        if only is not None and name != only:
+            continue
         try:
             module = _load(module_path)
         except ImportError as exc:  # an optional extra is missing
@@ -67,8 +73,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the process exit code."""
-    parser = build_parser()
     words = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser(only=words[0] if words and words[0] in SUBCOMMANDS else None)
     # ROS arguments pass through untouched: everything from --ros-args on is the node's
     ros_tail: list[str] = []
     if "--ros-args" in words:
