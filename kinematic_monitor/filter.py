@@ -522,6 +522,29 @@ class BicycleEKF:
         if not (_isfinite(x) and _isfinite(y) and _isfinite(yaw)):
             _check_finite(x=x, y=y, yaw=yaw)
         r00, r01, r02, r11, r12, r22 = _cov3("pose covariance", cov)
+        e0, e1, e2, s00, s01, s02, s11, s12, s22, nis = self._pose_update(
+            x, y, yaw, r00, r01, r02, r11, r12, r22)
+        return _innovation(
+            np.array((e0, e1, e2)), np.array((s00, s01, s02, s11, s12, s22))[_SYM3], nis, 3
+        )
+
+    def update_pose_diag(self, x: float, y: float, yaw: float, var_xy: float,
+                         var_yaw: float) -> float:
+        """:meth:`update_pose` with cov = diag(var_xy, var_xy, var_yaw) [m^2, m^2, rad^2];
+        returns the NIS only (3 degrees of freedom), the same float as ``update_pose``."""
+        if not self._initialised:
+            raise _not_initialised()
+        if not (_isfinite(x) and _isfinite(y) and _isfinite(yaw)):
+            _check_finite(x=x, y=y, yaw=yaw)
+        if not (0.0 <= var_xy < _INF and 0.0 <= var_yaw < _INF):  # the full check raises
+            _cov3("pose covariance", [[var_xy, 0.0, 0.0], [0.0, var_xy, 0.0],
+                                      [0.0, 0.0, var_yaw]])
+        return self._pose_update(x, y, yaw, var_xy, 0.0, 0.0, var_xy, 0.0, var_yaw)[9]
+
+    def _pose_update(self, x: float, y: float, yaw: float, r00: float, r01: float,
+                     r02: float, r11: float, r12: float, r22: float) -> tuple[float, ...]:
+        """The pose update of validated inputs: (e0, e1, e2, s00, s01, s02, s11, s12, s22,
+        nis) (innovation, unique entries of its covariance, NIS)."""
         sx, sy, syaw, sv, sb = self._xs
         d = self.reference_x
         c, s = _cos(syaw), _sin(syaw)
@@ -647,9 +670,7 @@ class BicycleEKF:
             + si22 * e2 * e2
             + 2.0 * (si01 * e0 * e1 + si02 * e0 * e2 + si12 * e1 * e2)
         )
-        return _innovation(
-            np.array((e0, e1, e2)), np.array((s00, s01, s02, s11, s12, s22))[_SYM3], nis, 3
-        )
+        return e0, e1, e2, s00, s01, s02, s11, s12, s22, nis
 
     def pose_model(self) -> tuple[np.ndarray, np.ndarray]:
         """Predicted pose h(state) of the reference point and its 3x5 Jacobian H."""

@@ -110,6 +110,9 @@ def _opt(cfg: Any, name: str, default: Any) -> Any:
 
 _CHASSIS, _LOC, _IMU, _GNSS = range(4)
 #: sample class -> kind (exact-type look-up on the hot path; subclasses via isinstance)
+# a header stamp is builtin_interfaces/Time: int32 seconds + uint32 nanoseconds, so no
+# message can carry a stamp at or beyond 2**31 s; anything else handed to the core is garbage
+MAX_STAMP = float(2**31)
 _SAMPLE_KINDS: dict[type, int] = {ChassisSample: _CHASSIS, LocalizationSample: _LOC,
                                   ImuSample: _IMU, GnssSample: _GNSS}
 isfinite = math.isfinite
@@ -253,6 +256,7 @@ class Monitor:
         self.counters: dict[str, int] = {
             "samples": 0,
             "rejected_nan": 0,
+            "rejected_bad_stamp": 0,
             "rejected_steer_range": 0,
             "rejected_out_of_order": 0,
             "rejected_type": 0,
@@ -265,6 +269,7 @@ class Monitor:
         self.notes: list[tuple[float, str]] = []
         self._transitions: list[Transition] = []
         self._series_needs: dict[str, set[str]] | None = None
+        self._series_names: dict[tuple[str, str], str] = {}
         self._reset_state()
 
     # ------------------------------------------------------------------ state
@@ -386,6 +391,9 @@ class Monitor:
         if not isinstance(stamp, (int, float)) or not isfinite(stamp):
             self.counters["rejected_nan"] += 1
             return
+        if not 0.0 < stamp < MAX_STAMP:
+            self.counters["rejected_bad_stamp"] += 1
+            return
         if stamp < self.now:
             self.counters["rejected_out_of_order"] += 1
             return
@@ -430,21 +438,26 @@ class Monitor:
                 return
         else:  # speed-only sample: reuse the latest steering while fresh
             got_steer = False
-            fresh = _fin(self._steer_t) and s.stamp - self._steer_t <= hold
+            fresh = isfinite(self._steer_t) and s.stamp - self._steer_t <= hold
             delta_m = self._delta_meas if fresh else math.nan
         if got_steer and abs(delta_m) > p.max_road_wheel_angle:
             self.counters["rejected_steer_range"] += 1
             return
-        delta = model.corrected_steer(delta_m, p)
+        delta = delta_m + p.steering_offset  # model.corrected_steer
         wheels = (s.wheel_front_left, s.wheel_front_right, s.wheel_rear_left, s.wheel_rear_right)
         got_speed = True
+        tan_d = cos_b = math.nan  # tan(delta), cos(sideslip(delta)) when computed below
+        wb = p.wheelbase
         if isfinite(wheels[2]) and isfinite(wheels[3]) and isfinite(delta):
-            speed = model.cg_speed_from_rear_wheels(wheels[2], wheels[3], delta, p)
+            # model.cg_speed_from_rear_wheels inlined: the same operations in the same order
+            tan_d = math.tan(delta)
+            cos_b = math.cos(math.atan(p.cg_to_rear_axle * tan_d / wb))
+            speed = 0.5 * p.effective_wheel_radius * (wheels[2] + wheels[3]) / cos_b
         elif isfinite(s.speed):
             speed = s.speed
         else:  # steering-only sample: reuse the latest speed while fresh
             got_speed = False
-            fresh = _fin(self._speed_t) and s.stamp - self._speed_t <= hold
+            fresh = isfinite(self._speed_t) and s.stamp - self._speed_t <= hold
             speed = self._speed if fresh else math.nan
         if not (got_steer or got_speed):
             self.counters["rejected_nan"] += 1
@@ -456,24 +469,51 @@ class Monitor:
                 self._speed, self._speed_t = speed, s.stamp
             self.counters["chassis_partial"] = self.counters.get("chassis_partial", 0) + 1
             return
-        self._dr_advance(s.stamp)
+        stamp = s.stamp
+        # _dr_advance(stamp) inlined (the inputs held until now)
+        dr = self._dr
+        if dr is not None and stamp > self._dr_t:
+            held_d, held_v = self._delta, self._speed
+            if isfinite(held_d) and isfinite(held_v):
+                dt = stamp - self._dr_t
+                x, y, yaw = dr
+                dr = self._dr = model.step(x, y, yaw, held_v, held_d, dt, p)
+                self._dr_dist += abs(held_v) * dt
+                self._dr_dyaw += angle_diff(dr[2], yaw)
+                self._dr_t = stamp
         self._delta, self._speed = delta, speed
         self._delta_meas = delta_m
         if got_steer:
-            self._steer_t = s.stamp
+            self._steer_t = stamp
             self._steer_pair = (s.steer_left, s.steer_right)
         if got_speed:
-            self._speed_t = s.stamp
+            self._speed_t = stamp
             self._wheels = wheels if (isfinite(wheels[0]) and isfinite(wheels[1])
                                       and isfinite(wheels[2]) and isfinite(wheels[3])) else None
         self._n_chassis_block += 1
         self._dr_nchassis += 1
-        self.last_seen["joint_states"] = s.stamp
-        self._kin_rate = self._kinematic_rate()
-        self._track_kinematic_change(s.stamp)
+        self.last_seen["joint_states"] = stamp
+        # _kinematic_rate() inlined (delta and speed are finite here)
+        d = delta
+        if self.understeer != 0.0 and isfinite(self._ay):
+            d -= self.understeer * self._ay
+        if d != self._curv_delta:
+            self._curv_delta = d
+            if d is delta and isfinite(cos_b):  # no understeer term (same float object)
+                # model.curvature(delta) = cos(sideslip) * tan(delta) / L: both computed above
+                self._curv = cos_b * tan_d / wb
+            else:
+                self._curv = model.curvature(d, p)
+        kin_speed = speed
+        if self._rear_slipping:
+            g = self._ground_speed()
+            if isfinite(g):
+                kin_speed = g
+        self._kin_rate = kin_speed * self._curv
+        self._track_kinematic_change(stamp)
         if self._ekf is not None:
             try:
-                self._ekf.predict(s.stamp, delta_m, speed)
+                self._ekf.predict(stamp, delta_m, speed)
             except (ValueError, RuntimeError):
                 self.counters["filter_errors"] += 1
                 self._ekf = None
@@ -626,7 +666,7 @@ class Monitor:
         self._meas_rate = meas
         noise = yaw_rate_sigma(self._speed, self._delta, self.p.wheelbase, meas_std,
                                self.noise.steering_angle_std, self._sig_v_pair, kin, 0.0)
-        ay = abs(self._ay) if _fin(self._ay) else abs(meas * self._speed)
+        ay = abs(self._ay) if isfinite(self._ay) else abs(meas * self._speed)
         allow = (self.model_rel * abs(kin) + self.yaw_tol + self._lag_allow
                  + abs(self._speed) / self.p.wheelbase * self.us_tol * ay)
         self._yaw_allow = allow
@@ -676,7 +716,7 @@ class Monitor:
             # (b) prediction from measured motion: the previous body velocity and the IMU
             # (or localisation) yaw rate; a slide is consistent with it, a jump is not
             m_rate = self._yaw_rate_imu if self._imu_fresh() else meas_rate
-            if _fin(vx0, vy0, m_rate):
+            if isfinite(vx0) and isfinite(vy0) and isfinite(m_rate):
                 ym = yaw0 + 0.5 * m_rate * dt
                 c, sn = math.cos(ym), math.sin(ym)
                 pm = (x0 + (c * vx0 - sn * vy0) * dt, y0 + (sn * vx0 + c * vy0) * dt,
@@ -757,14 +797,14 @@ class Monitor:
         bias b leaves b·τ, covered by ``checks.heading_tolerance`` [rad]). A ramp (drift)
         keeps e growing; a step is absorbed after a few τ.
         """
-        if not self._imu_fresh() or not _fin(yaw, self._heading_t) or \
+        if not self._imu_fresh() or not (isfinite(yaw) and isfinite(self._heading_t)) or \
                 stamp - self._heading_t > self.timeouts["imu"]:
             self._heading_offset = math.nan
             return
         # IMU heading extrapolated to the localisation stamp with the latest rate
         head = self._imu_heading + self._yaw_rate_imu * (stamp - self._heading_t)
         diff = yaw - head
-        if not _fin(self._heading_offset):
+        if not isfinite(self._heading_offset):
             self._heading_offset = diff
             self._heading_prev_t = stamp
             self._heading_n = 1
@@ -801,10 +841,10 @@ class Monitor:
         p = self.p
         r_e = p.effective_wheel_radius
         w = 0.5 * p.track_width
-        rate = rate if _fin(rate) else 0.0
+        rate = rate if isfinite(rate) else 0.0
         fl, fr, rl, rr = self._wheels
         dl, dr = self._steer_pair
-        if not _fin(dl, dr):
+        if not (isfinite(dl) and isfinite(dr)):
             dl = dr = self._delta
         lf = p.cg_to_front_axle
         g_fl = (vx - w * rate) * math.cos(dl) + (vy + lf * rate) * math.sin(dl)
@@ -826,7 +866,7 @@ class Monitor:
         # alike (ISO 8855 slip ∝ force), so hard braking or acceleration is left out
         imu = self._imu
         ax = imu.ax if imu is not None and self._imu_fresh() else math.nan
-        steady = not (_fin(ax) and abs(ax) > CALIBRATION_MAX_AX)
+        steady = not (isfinite(ax) and abs(ax) > CALIBRATION_MAX_AX)
         self._acc["wheel_scale"].add(k_cal, noise, self.scale_tol, moving and steady)
 
     def _drift_on_loc(self, stamp: float, pose: tuple[float, float, float], sp: float,
@@ -905,7 +945,7 @@ class Monitor:
                     speed_std=self.noise.wheel_speed_std * self.p.effective_wheel_radius,
                 )
                 ekf = BicycleEKF(self.p, fn, reference_x=self.ref_x)
-                v0 = self._speed if _fin(self._speed) else 0.0
+                v0 = self._speed if isfinite(self._speed) else 0.0
                 ekf.initialise(s.stamp, s.x, s.y, s.yaw, v=v0, pose_cov=cov)
                 if _fin(self._delta_meas_or_nan()):
                     ekf.predict(s.stamp, self._delta_meas_or_nan(), v0)
@@ -917,14 +957,15 @@ class Monitor:
             return
         try:
             self._ekf.predict(s.stamp, self._delta_meas_or_nan(), self._speed)
-            inn = self._ekf.update_pose(s.x, s.y, s.yaw, cov)
+            # update_pose(s.x, s.y, s.yaw, cov) without building the Innovation arrays
+            nis = self._ekf.update_pose_diag(s.x, s.y, s.yaw, cov[0][0], cov[2][2])
         except (ValueError, RuntimeError):
             self.counters["filter_errors"] += 1
             self._ekf = None
             return
-        self._nis_dof = int(inn.dof)
+        self._nis_dof = 3
         if self._moving():
-            self._nis.append(float(inn.nis))
+            self._nis.append(float(nis))
 
     def _delta_meas_or_nan(self) -> float:
         return self._delta_meas
@@ -949,7 +990,7 @@ class Monitor:
             acc = self._acc[ch]
             mean, z = acc.z(n_ch)
             chk = self._cusum[ch]
-            if acc.n and acc.all_active and self._active and _fin(z):
+            if acc.n and acc.all_active and self._active and isfinite(z):
                 self._figures[ch].update({f"block_mean_residual [{UNITS[ch]}]": mean,
                                           "excess [sigma]": z})
                 out = chk.update(z, t, span=self.period)
@@ -977,9 +1018,9 @@ class Monitor:
                 self._handle("slip_ratio", out, t)
         self._slip_acc = {"front": [], "rear": []}
         # grip in use
-        ay = self._ay if _fin(self._ay) else (
+        ay = self._ay if isfinite(self._ay) else (
             self._speed * self._meas_rate if _fin(self._speed, self._meas_rate) else math.nan)
-        if _fin(ay):
+        if isfinite(ay):
             self._figures["grip"].update({"lateral_accel [m/s^2]": ay,
                                           "grip_in_use [g]": abs(ay) / GRAVITY,
                                           "kinematic_envelope [m/s^2]": self._grip.warn})
@@ -1004,13 +1045,13 @@ class Monitor:
             if name == "imu" and not self.imu_enabled:
                 continue
             last = self.last_seen[name]
-            ref = last if _fin(last) else self._first_stamp
-            stale = _fin(ref) and t - ref > self.timeouts[name]
+            ref = last if isfinite(last) else self._first_stamp
+            stale = isfinite(ref) and t - ref > self.timeouts[name]
             level = (WARN if name == "imu" else ERROR) if stale else OK
             tr = self._stale[name]
-            out = tr.update(level, t, onset=ref + self.timeouts[name] if _fin(ref) else t,
-                            end_hint=last if _fin(last) else t)
-            self._figures[f"input_{name}"] = {"age [s]": t - ref if _fin(ref) else math.nan,
+            out = tr.update(level, t, onset=ref + self.timeouts[name] if isfinite(ref) else t,
+                            end_hint=last if isfinite(last) else t)
+            self._figures[f"input_{name}"] = {"age [s]": t - ref if isfinite(ref) else math.nan,
                                               "timeout [s]": self.timeouts[name]}
             self._handle(f"input_{name}", out, t)
 
@@ -1116,7 +1157,7 @@ class Monitor:
         slot.channels.discard(channel)
         if not slot.channels:
             ev = slot.event
-            ev.end = max(end if _fin(end) else self.now, ev.start)
+            ev.end = max(end if isfinite(end) else self.now, ev.start)
             del self._slots[kind]
             self._transitions.append(Transition("end", ev))
 
@@ -1133,13 +1174,13 @@ class Monitor:
 
     def _update_peak(self, ev: Event, channels: set[str]) -> None:
         def peak(name: str, value: float) -> None:
-            if _fin(value) and (name not in ev.peak or abs(value) > abs(ev.peak[name])):
+            if isfinite(value) and (name not in ev.peak or abs(value) > abs(ev.peak[name])):
                 ev.peak[name] = value
 
         if ev.kind in ("lateral_slip", "calibration_bias", "localization_fault"):
             if _fin(self._meas_rate, self._kin_rate):
                 peak("yaw_rate_residual_rad_s", self._meas_rate - self._kin_rate)
-            peak("lateral_accel_g", abs(self._ay) / GRAVITY if _fin(self._ay) else math.nan)
+            peak("lateral_accel_g", abs(self._ay) / GRAVITY if isfinite(self._ay) else math.nan)
             peak("sideslip_residual_rad",
                  self._figures["sideslip"].get("sideslip_measured [rad]", math.nan)
                  - self._figures["sideslip"].get("sideslip_kinematic [rad]", math.nan))
@@ -1155,7 +1196,7 @@ class Monitor:
             for name in INPUTS:
                 if f"input_{name}" in channels:
                     peak(f"{name}_age_s", self._figures[f"input_{name}"].get("age [s]", math.nan))
-        peak("speed_m_s", self._speed if _fin(self._speed) else math.nan)
+        peak("speed_m_s", self._speed if isfinite(self._speed) else math.nan)
 
     # ------------------------------------------------------------------ outputs
     def pop_transitions(self) -> list[Transition]:
@@ -1188,6 +1229,19 @@ class Monitor:
             return Prediction(float(ekf.stamp), float(ekf.x), float(ekf.y),
                               wrap_angle(float(ekf.yaw)), float(ekf.v), float(rate), cov,
                               self.frame_id)
+        except (ValueError, RuntimeError, AttributeError, TypeError):
+            return None
+
+    def estimate(self) -> tuple[float, float, float, float] | None:
+        """(x [m], y [m], yaw [rad], v [m/s]) of :meth:`prediction` without its covariance
+        (the same floats), or None where :meth:`prediction` gives None."""
+        ekf = self._ekf
+        if ekf is None:
+            return None
+        try:
+            if hasattr(ekf, "steer"):
+                model.yaw_rate(ekf.v, ekf.steer(), self.p)  # as prediction(): may raise
+            return (float(ekf.x), float(ekf.y), wrap_angle(float(ekf.yaw)), float(ekf.v))
         except (ValueError, RuntimeError, AttributeError, TypeError):
             return None
 
@@ -1249,16 +1303,31 @@ class Monitor:
         levels: dict[str, int] = {}
         values: dict[str, float] = {}
         isfinite = math.isfinite
+        names = self._series_names  # (check, figure) -> "<check>.<figure>"
+        cusum = self._cusum
         for ch, check in SERIES_CHECKS.items():
             figs = self._figures.get(ch, {})
-            if ch in self._cusum:
-                chk = self._cusum[ch]
+            chk = cusum.get(ch)
+            if chk is not None:
                 level = chk.level
-                figs = dict(figs)
-                figs["cusum [sigma]"] = chk.statistic
-                figs["cusum_warn [sigma]"] = chk.h_warn
-                figs["cusum_error [sigma]"] = chk.h_error
-            elif ch == "slip_ratio":
+                # the figures, then the CUSUM's three (never among the figures)
+                for key, v in figs.items():
+                    if isfinite(v):
+                        full = names.get((check, key))
+                        if full is None:
+                            full = names[(check, key)] = f"{check}.{key}"
+                        values[full] = float(v)
+                levels[check] = int(STALE if stale and needs[ch] & stale else level)
+                for key, v in (("cusum [sigma]", chk.statistic),
+                               ("cusum_warn [sigma]", chk.h_warn),
+                               ("cusum_error [sigma]", chk.h_error)):
+                    if isfinite(v):
+                        full = names.get((check, key))
+                        if full is None:
+                            full = names[(check, key)] = f"{check}.{key}"
+                        values[full] = float(v)
+                continue
+            if ch == "slip_ratio":
                 level = self._slip.level
             elif ch == "localization":
                 level = self._jump.level
@@ -1274,7 +1343,10 @@ class Monitor:
             levels[check] = int(level)
             for key, v in figs.items():
                 if isfinite(v):
-                    values[f"{check}.{key}"] = float(v)
+                    full = names.get((check, key))
+                    if full is None:
+                        full = names[(check, key)] = f"{check}.{key}"
+                    values[full] = float(v)
         for name in INPUTS:
             if name == "imu" and not self.imu_enabled:
                 continue

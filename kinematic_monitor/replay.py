@@ -92,6 +92,9 @@ def _bicycle_steer(s: ChassisSample) -> float:
     return math.atan(2.0 * tl * tr / (tl + tr)) if tl * tr > 0.0 else 0.5 * (dl + dr)
 
 
+_NAN4 = (math.nan, math.nan, math.nan, math.nan)
+
+
 def _prediction_fields(pred: Any) -> tuple[float, float, float, float]:
     """(x, y, yaw, speed) from the monitor's prediction object or mapping (NaN if absent)."""
     if pred is None:
@@ -176,6 +179,7 @@ class _Recorder:
                  keep_rows: bool = False) -> None:
         self.monitor = monitor
         self._process = monitor.process
+        self._estimate = getattr(monitor, "estimate", None)
         self.fh = fh
         self.interval = interval
         self.warmup = warmup
@@ -187,6 +191,9 @@ class _Recorder:
         self.steer = math.nan
         self.accel = math.nan
         self.loc: tuple[float, float, float, float] = (math.nan,) * 4  # type: ignore[assignment]
+        # latest chassis / localisation sample not yet turned into steer / loc (at a row)
+        self._steer_from: Any = None
+        self._loc_from: Any = None
         self.samples = 0
         self.transitions: list[Any] = []
         self.keep_rows = keep_rows
@@ -213,11 +220,9 @@ class _Recorder:
                 if not (a <= self.accel):
                     self.accel = a
         elif isinstance(sample, ChassisSample):
-            self.steer = _bicycle_steer(sample)
+            self._steer_from = sample  # steering and pose are derived at the next row only
         elif isinstance(sample, LocalizationSample):
-            speed = (_hypot(sample.vx, sample.vy) if _isfinite(sample.vy)
-                     else abs(sample.vx))
-            self.loc = (sample.x, sample.y, sample.yaw, speed)
+            self._loc_from = sample
         if stamp >= self.next_row:
             # rows on a regular grid of header-stamp time (no drift from sample spacing)
             if _isfinite(self.next_row) and self.interval > 0.0:
@@ -234,16 +239,35 @@ class _Recorder:
         and the ``final`` row (the report's final statuses).
         """
         mon = self.monitor
+        if self._steer_from is not None:  # the latest chassis sample's steering
+            self.steer = _bicycle_steer(self._steer_from)
+            self._steer_from = None
+        loc = self._loc_from
+        if loc is not None:  # the latest localisation sample's pose and speed
+            speed = _hypot(loc.vx, loc.vy) if _isfinite(loc.vy) else abs(loc.vx)
+            self.loc = (loc.x, loc.y, loc.yaw, speed)
+            self._loc_from = None
         statuses: list[Any] = []
         if self.keep_rows or final:
             statuses = list(mon.statuses())
             self.last_statuses = statuses
         for tr in mon.pop_transitions():  # snapshot: the monitor keeps updating its events
             self.transitions.append((tr.type, tr.event.to_dict(), int(tr.event.level)))
-        try:
-            pred = mon.prediction()
-        except Exception:  # noqa: BLE001 - no estimate yet is not an error
+        est = self._estimate
+        if est is not None and not self.keep_rows:
+            # the prediction's pose and speed only (no covariance): the same floats
+            try:
+                fields = est()
+            except Exception:  # noqa: BLE001 - no estimate yet is not an error
+                fields = None
+            x, y, yaw, v = fields if fields is not None else _NAN4
             pred = None
+        else:
+            try:
+                pred = mon.prediction()
+            except Exception:  # noqa: BLE001 - no estimate yet is not an error
+                pred = None
+            x, y, yaw, v = _prediction_fields(pred)
         if self.keep_rows:
             # statuses at 1 Hz and on a level change (what /diagnostics needs), the
             # prediction at every row
@@ -254,7 +278,6 @@ class _Recorder:
                 self.kept.append((stamp, statuses, pred))
             else:
                 self.kept.append((stamp, None, pred))
-        x, y, yaw, v = _prediction_fields(pred)
         if not math.isfinite(x):
             x, y, yaw = self.loc[0], self.loc[1], self.loc[2]
         if not math.isfinite(v):

@@ -83,7 +83,8 @@ class TimeseriesWriter:
             return
         if self._open and time - self._window_start >= self.min_interval - 1e-6:
             self._flush_row()
-        if not self._open:
+        fresh = not self._open  # a new window: the residual slots are all NaN
+        if fresh:
             self._open = True
             self._window_start = time
         b = self._base
@@ -97,13 +98,21 @@ class TimeseriesWriter:
             chan_index = self._chan_index
             res = self._res
             isfinite = math.isfinite
-            for name, value in residuals.items():
-                j = chan_index.get(name)
-                if j is None:
-                    self.ignored += 1
-                    continue
-                if isfinite(value) and not (abs(value) <= abs(res[j])):
-                    res[j] = value
+            if fresh:  # every slot NaN: a finite value always replaces it
+                for name, value in residuals.items():
+                    j = chan_index.get(name)
+                    if j is None:
+                        self.ignored += 1
+                    elif isfinite(value):
+                        res[j] = value
+            else:
+                for name, value in residuals.items():
+                    j = chan_index.get(name)
+                    if j is None:
+                        self.ignored += 1
+                        continue
+                    if isfinite(value) and not (abs(value) <= abs(res[j])):
+                        res[j] = value
         if levels:
             check_index = self._check_index
             lev = self._lev

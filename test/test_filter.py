@@ -483,3 +483,24 @@ def test_non_positive_definite_velocity_innovation_rejected():
         ekf.update_body_velocity(5.0, 0.0, bad)
     np.testing.assert_array_equal(ekf.state, state)
     np.testing.assert_array_equal(ekf.covariance, cov)
+
+
+def test_update_pose_diag_is_update_pose_with_a_diagonal_covariance() -> None:
+    # the NIS-only pose update must be the very same arithmetic as update_pose with
+    # cov = diag(var_xy, var_xy, var_yaw) (same state, covariance and NIS to the bit)
+    rng = np.random.default_rng(7)
+    for _ in range(50):
+        a = BicycleEKF(P, reference_x=float(rng.uniform(-1.5, 0.0)))
+        b = BicycleEKF(P, reference_x=a.reference_x)
+        for f in (a, b):
+            f.initialise(0.0, 1.0, 2.0, 0.3, v=5.0)
+            f.predict(0.05, 0.05, 5.0)
+        x, y, yaw = rng.normal(1.2, 0.3), rng.normal(2.1, 0.3), rng.normal(0.3, 0.05)
+        vxy, vyaw = rng.uniform(1e-4, 1.0), rng.uniform(1e-6, 0.1)
+        nis = a.update_pose_diag(x, y, yaw, vxy, vyaw)
+        inn = b.update_pose(x, y, yaw, np.diag([vxy, vxy, vyaw]))
+        assert nis == inn.nis
+        assert np.array_equal(a.state, b.state)
+        assert np.array_equal(a.covariance, b.covariance)
+    with pytest.raises(ValueError):
+        a.update_pose_diag(0.0, 0.0, 0.0, -1.0, 0.1)

@@ -501,3 +501,17 @@ def test_series_values_carry_the_statuses_levels_and_figures() -> None:
         for key, v in values.items():
             assert f"{v:.6g}" == f"{expected[key]:.6g}", key
     assert seen_stale
+
+
+def test_stamp_no_message_can_carry_is_rejected_and_counted() -> None:
+    # builtin_interfaces/msg/Time holds int32 sec + uint32 nanosec (ROS 2 interface
+    # definition), so a stamp >= 2**31 s or <= 0 cannot come from a message
+    from kinematic_monitor.monitor import Monitor
+    from kinematic_monitor.samples import ImuSample
+
+    mon = Monitor({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
+                   "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55})
+    for stamp in (1.797693134862316e307, float(2**31), -5.0, 0.0):
+        mon.process(ImuSample(stamp, 0.0, 0.0, 0.0))
+    assert mon.counters["rejected_bad_stamp"] == 4
+    assert mon.counters["internal_errors"] == 0 and mon.counters["samples"] == 0
