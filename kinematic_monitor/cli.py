@@ -12,8 +12,10 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Sequence
+from typing import Any
 
 from kinematic_monitor import __version__
 
@@ -34,6 +36,28 @@ SUBCOMMANDS: dict[str, str] = {
 
 class UsageError(Exception):
     """Bad usage, bad parameters or unreadable input: exit code 2 with a message."""
+
+
+def load_config(path: str) -> Any:
+    """The validated ``MonitorConfig`` of a ROS 2 parameter file; ``UsageError`` if bad."""
+    from kinematic_monitor.params import ParamError, load_params_file, validate
+
+    if not os.path.isfile(path):
+        raise UsageError(f"parameter file {path!r} does not exist or is not a file")
+    try:
+        return validate(load_params_file(path))
+    except ParamError as exc:
+        raise UsageError(f"parameter file {path!r}: {exc}") from None
+
+
+def progress_wanted() -> bool:
+    """A progress bar only on an interactive terminal and never under CI."""
+    if os.environ.get("CI", "").strip().lower() in ("1", "true", "yes"):
+        return False
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):
+        return False
 
 
 def _load(module_path: str):  # type: ignore[no-untyped-def]

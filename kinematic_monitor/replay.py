@@ -12,7 +12,6 @@ from __future__ import annotations
 import argparse
 import json
 import math
-import os
 import sys
 import time
 from collections import Counter
@@ -21,7 +20,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from kinematic_monitor.cli import EXIT_FAIL_ON, EXIT_OK, UsageError
+from kinematic_monitor.cli import (
+    EXIT_FAIL_ON,
+    EXIT_OK,
+    UsageError,
+    load_config,
+    progress_wanted,
+)
 from kinematic_monitor.outputs import OutputDir, OutputDirError
 from kinematic_monitor.samples import ChassisSample, ImuSample, LocalizationSample
 from kinematic_monitor.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter
@@ -63,16 +68,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 # ---------------------------------------------------------------------------------------
 # helpers
-
-
-def _progress_enabled() -> bool:
-    """A progress bar only on an interactive terminal and never under CI."""
-    if os.environ.get("CI", "").strip().lower() in ("1", "true", "yes"):
-        return False
-    try:
-        return sys.stderr.isatty()
-    except (AttributeError, ValueError):
-        return False
 
 
 _isfinite = math.isfinite
@@ -325,17 +320,6 @@ def _thresholds(config: Any, channels: list[str]) -> dict[str, list[tuple[str, f
     return out
 
 
-def _load_config(path: str) -> Any:
-    from kinematic_monitor.params import ParamError, load_params_file, validate
-
-    if not Path(path).is_file():
-        raise UsageError(f"parameter file {path!r} does not exist or is not a file")
-    try:
-        return validate(load_params_file(path))
-    except ParamError as exc:
-        raise UsageError(f"parameter file {path!r}: {exc}") from None
-
-
 def _open_bag(path: str, config: Any) -> Any:
     from kinematic_monitor import bag
 
@@ -416,7 +400,7 @@ def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False
     if not (math.isfinite(series_interval) and 0.0 <= series_interval <= 10.0):
         raise UsageError(f"--series-interval {series_interval!r} must be in [0, 10] s")
     wall0 = time.perf_counter()
-    config = _load_config(params_path)
+    config = load_config(params_path)
     source = _open_bag(bag_path, config)
     try:
         outdir = OutputDir(out_dir, force=force, known_outputs=OUTPUT_NAMES)
@@ -439,7 +423,7 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
     from kinematic_monitor.monitor import Monitor
 
     result = RunResult(source=str(bag_path))
-    show = _progress_enabled() if progress is None else progress
+    show = progress_wanted() if progress is None else progress
     with outdir:
         monitor = Monitor(config)
         with outdir.open_text(TIMESERIES_CSV) as ts_fh:

@@ -46,7 +46,13 @@ from pathlib import Path
 from typing import Any
 
 from kinematic_monitor import __version__, fleet
-from kinematic_monitor.cli import EXIT_FAIL_ON, EXIT_OK, UsageError
+from kinematic_monitor.cli import (
+    EXIT_FAIL_ON,
+    EXIT_OK,
+    UsageError,
+    load_config,
+    progress_wanted,
+)
 
 HELP = ("Replay many rosbag2 folders in parallel on Dask; write per-bag outputs, a fleet "
         "summary and a low-grip map.")
@@ -209,26 +215,6 @@ class SweepResult:
     outputs: list[Path] = field(default_factory=list)
 
 
-def _load_config(path: str) -> Any:
-    from kinematic_monitor.params import ParamError, load_params_file, validate
-
-    if not Path(path).is_file():
-        raise UsageError(f"parameter file {path!r} does not exist or is not a file")
-    try:
-        return validate(load_params_file(path))
-    except ParamError as exc:
-        raise UsageError(f"parameter file {path!r}: {exc}") from None
-
-
-def _progress_default() -> bool:
-    if os.environ.get("CI", "").strip().lower() in ("1", "true", "yes"):
-        return False
-    try:
-        return sys.stderr.isatty()
-    except (AttributeError, ValueError):
-        return False
-
-
 @contextmanager
 def dask_client(workers: int, scheduler: str | None = None) -> Iterator[Any]:
     """A Dask client: on ``scheduler`` if given, else on a local cluster of ``workers``
@@ -312,7 +298,7 @@ def sweep(paths: Sequence[str], params_path: str, out: str, *, workers: int | No
         raise UsageError(f"--workers {n_workers} must be between 1 and {MAX_WORKERS}")
     if not (math.isfinite(cluster_radius) and 0.0 <= cluster_radius <= 10000.0):
         raise UsageError(f"--cluster-radius {cluster_radius!r} must be in [0, 10000] m")
-    config = _load_config(params_path)
+    config = load_config(params_path)
     try:
         bags = fleet.find_bags(paths)
     except fleet.FleetError as exc:
@@ -352,7 +338,7 @@ def sweep(paths: Sequence[str], params_path: str, out: str, *, workers: int | No
         tasks.append({"bag": str(bag), "out_dir": str(out_dir),
                       "params": str(out_root / PARAMS_COPY), "key": key, "bag_id": bag_id,
                       "gnss_topic": gnss_topic, "start_time": fleet.bag_start_time(bag)})
-    show = _progress_default() if progress is None else progress
+    show = progress_wanted() if progress is None else progress
     if tasks:
         _run_tasks(tasks, records, n_workers, scheduler, show, len(bags), client)
         result.swept = len(tasks)

@@ -311,10 +311,10 @@ def test_truncated_bag_reports_lost_data(jump_bag: Path, tmp_path: Path,
 
 def test_progress_bar_quiet_under_ci(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setenv("CI", "true")
-    assert replay._progress_enabled() is False
+    assert replay.progress_wanted() is False
     monkeypatch.delenv("CI")
     # under pytest stderr is captured, not a terminal
-    assert replay._progress_enabled() is False
+    assert replay.progress_wanted() is False
 
 
 def test_bicycle_steer_follows_ackermann() -> None:
