@@ -470,6 +470,6 @@ def test_stamps_behind_the_node_clock_stay_stale_without_flapping(pipe: Pipe) ->
             pipe.mon.check_stale(st + 1.0)
             tick += 0.1
     new = pipe.mon.events[n0:]
-    assert 1 <= len(new) <= 3 and {e.kind for e in new} == {"input_stale"}, new
+    assert len(new) in (1, 2, 3) and {e.kind for e in new} == {"input_stale"}, new
     assert pipe.levels()["kinematic_monitor: localization jump"] == STALE
     assert_filter_healthy(pipe)

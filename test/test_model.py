@@ -41,7 +41,7 @@ def test_cg_equations_match_rajamani_check_values(v, delta, lf, lr, beta, rate, 
     assert m.sideslip(delta, p) == pytest.approx(beta, abs=1e-6)
     assert m.yaw_rate(v, delta, p) == pytest.approx(rate, abs=1e-6)
     assert m.lateral_acceleration(v, delta, p) == pytest.approx(ay, rel=1e-5)
-    assert 1.0 / m.curvature(delta, p) == pytest.approx(radius, rel=1e-5)
+    assert radius == pytest.approx(1.0 / m.curvature(delta, p), rel=1e-5)
     # identity psi_dot = v sin(beta) / l_r (Rajamani 2012, kinematic model)
     beta_model = m.sideslip(delta, p)
     assert m.yaw_rate(v, delta, p) == pytest.approx(v * math.sin(beta_model) / lr, rel=1e-12)

@@ -178,7 +178,7 @@ def test_ackermann_angles_follow_cot_rule():
     for d in (0.05, 0.3, -0.2):
         dl, dr = ackermann_angles(d, L, t)
         assert (1 / math.tan(dl) + 1 / math.tan(dr)) / 2 == pytest.approx(1 / math.tan(d))
-        assert 1 / math.tan(dr) - 1 / math.tan(dl) == pytest.approx(t / L)
+        assert t / L == pytest.approx(1 / math.tan(dr) - 1 / math.tan(dl))
     assert ackermann_angles(0.0, L, t) == (0.0, 0.0)
 
 
