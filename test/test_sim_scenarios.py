@@ -69,7 +69,7 @@ def test_trace_accelerations_are_consistent_with_velocities():
     # bicycle-equivalent steering from the left/right angles (DESIGN.md 1, Ackermann)
     i = int(np.argmax(np.abs(tr.steer)))
     cot = (1 / math.tan(tr.steer_left[i]) + 1 / math.tan(tr.steer_right[i])) / 2
-    assert 1 / cot == pytest.approx(math.tan(tr.steer[i]), rel=1e-9)
+    assert math.tan(tr.steer[i]) == pytest.approx(1 / cot, rel=1e-9)
 
 
 def test_determinism_and_seed():
