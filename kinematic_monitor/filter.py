@@ -320,6 +320,12 @@ class BicycleEKF:
         """Copy of the 5x5 state covariance."""
         return np.array(self._p)[_SYM5]
 
+    def pose_covariance(self) -> tuple[float, ...]:
+        """The (x, y, yaw) block of the covariance, row-major 3x3 [m^2, m rad, rad^2]
+        (the same floats as ``covariance[:3, :3]``, without building an array)."""
+        p00, p01, p02, _, _, p11, p12, _, _, p22 = self._p[:10]
+        return (p00, p01, p02, p01, p11, p12, p02, p12, p22)
+
     @property
     def x(self) -> float:
         """CG x [m]."""

@@ -828,6 +828,15 @@ class Monitor:
         self._acc["heading"].add(e, noise, self.heading_tol, self._moving())
 
     @functools.lru_cache(maxsize=64)  # noqa: B019 (one monitor per process, few rates)
+    def _nis_bounds(self, dof: int, n: int, loc_rate_hz: int) -> tuple[float, float, float]:
+        """Mean-NIS bounds over ``n`` updates: (95 % lower, 95 % upper, WARN) where WARN
+        is the chi-square(dof·n)/n quantile for ``checks.false_alarms_per_hour`` windows."""
+        windows_per_hour = 3600.0 * loc_rate_hz / n
+        conf = 1.0 - min(0.5, self._rate_fa / windows_per_hour)
+        lo, hi = mean_nis_bounds(dof, n, 0.95)
+        return lo, hi, chi2_upper(dof * n, conf) / n
+
+    @functools.lru_cache(maxsize=64)  # noqa: B019 (one monitor per process, few rates)
     def _jump_thresholds(self, loc_rate_hz: int) -> tuple[float, float]:
         """chi-square(3) WARN/ERROR bounds per localisation update at ``loc_rate_hz``."""
         p_warn = self._rate_fa / (3600.0 * loc_rate_hz)
@@ -1222,8 +1231,7 @@ class Monitor:
         if ekf is None:
             return None
         try:
-            P = ekf.covariance
-            cov = tuple(float(P[i, j]) for i in range(3) for j in range(3))
+            cov = tuple(float(c) for c in ekf.pose_covariance())
             rate = model.yaw_rate(ekf.v, ekf.steer(), self.p) if hasattr(ekf, "steer") else (
                 self._kin_rate)
             return Prediction(float(ekf.stamp), float(ekf.x), float(ekf.y),
@@ -1374,10 +1382,9 @@ class Monitor:
         if n < self._nis.maxlen if self._nis.maxlen else True:
             return OK, f"collecting ({n}/{self.nis_window} updates)"
         mean = sum(self._nis) / n
-        windows_per_hour = 3600.0 * self.loc_rate_guess / n
-        conf = 1.0 - min(0.5, self._rate_fa / windows_per_hour)
-        lo, hi = mean_nis_bounds(self._nis_dof, n, 0.95)
-        hi_fa = chi2_upper(self._nis_dof * n, conf) / n
+        # the update rate in whole Hz, as for the jump thresholds: the bounds are then
+        # computed once per rate (the estimate jitters with the stamps)
+        lo, hi, hi_fa = self._nis_bounds(self._nis_dof, n, max(1, round(self.loc_rate_guess)))
         figs.update({"mean_nis [-]": mean, "mean_nis_95_lower [-]": lo,
                      "mean_nis_95_upper [-]": hi, "mean_nis_warn [-]": hi_fa})
         if mean > hi_fa:

@@ -73,7 +73,6 @@ _ROS_BUILTIN_PARAMS = ("use_sim_time", "start_type_description_service")
 _INT_LIMIT = 2**63 - 1
 _LATENCY_WINDOW = 4000  # samples kept for the latency percentiles
 _LEVEL_CHECK_PERIOD = 0.02  # [s] wall time between level-change checks without transitions
-_PREDICTION_PERIOD = 0.02  # [s] header-stamp time between ~/prediction messages
 
 
 @dataclass
@@ -488,6 +487,8 @@ class KinematicMonitorNode(Node):
         self.pub_events = self.create_publisher(DiagnosticStatus, "~/events", 50)
         period = cfg.output.diagnostics_period
         self.prediction_frame = cfg.output.prediction_frame
+        # [s] header-stamp time between ~/prediction messages (1 µs slack: float stamps)
+        self._prediction_period = 1.0 / cfg.output.prediction_rate - 1e-6
         self._diag_timer = self.create_timer(period, self._guarded_timer(
             "diagnostics", self._on_diag_timer))
         self._tick_timer = self.create_timer(0.1, self._guarded_timer(
@@ -567,7 +568,7 @@ class KinematicMonitorNode(Node):
 
     def _after_processing(self) -> None:
         had_events = self._handle_transitions()
-        if self._last_stamp - self._last_prediction_stamp >= _PREDICTION_PERIOD:
+        if self._last_stamp - self._last_prediction_stamp >= self._prediction_period:
             self._publish_prediction()
         wall = time.monotonic()
         if had_events or wall - self._last_level_check >= _LEVEL_CHECK_PERIOD:

@@ -324,6 +324,9 @@ SPECS: tuple[ParamSpec, ...] = (
     _double("output.diagnostics_period", 1.0, "s", "Period of /diagnostics publication.",
             0.0, 1.0, lo_inc=False),
     _string("output.prediction_frame", "map", "Frame id of the ~/prediction odometry.", "frame"),
+    _double("output.prediction_rate", 20.0, "Hz",
+            "Rate of ~/prediction messages (header-stamp time); at most one per processed "
+            "sample.", 0.0, 1000.0, lo_inc=False),
 )
 
 SPEC_BY_NAME: dict[str, ParamSpec] = {s.name: s for s in SPECS}
@@ -543,6 +546,7 @@ class OutputConfig:
     events_log: str
     diagnostics_period: float
     prediction_frame: str
+    prediction_rate: float
 
 
 @dataclass(frozen=True)

@@ -504,3 +504,15 @@ def test_update_pose_diag_is_update_pose_with_a_diagonal_covariance() -> None:
         assert np.array_equal(a.covariance, b.covariance)
     with pytest.raises(ValueError):
         a.update_pose_diag(0.0, 0.0, 0.0, -1.0, 0.1)
+
+
+def test_pose_covariance_is_the_pose_block_of_the_covariance() -> None:
+    # the array-free accessor must give exactly covariance[:3, :3] (row-major)
+    ekf = BicycleEKF(P, reference_x=-1.2)
+    ekf.initialise(0.0, 1.0, 2.0, 0.3, v=5.0)
+    for k in range(1, 40):
+        ekf.predict(0.01 * k, 0.1 * math.sin(0.1 * k), 5.0)
+        if k % 5 == 0:
+            ekf.update_pose(ekf.x + 0.01, ekf.y - 0.02, ekf.yaw, np.diag([1e-2, 1e-2, 1e-3]))
+    block = ekf.covariance[:3, :3].reshape(-1)
+    assert ekf.pose_covariance() == tuple(float(c) for c in block)

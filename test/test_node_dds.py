@@ -168,6 +168,12 @@ def test_drive_gives_ok_then_stale_when_imu_stops(run: Run, executor: str) -> No
     assert pub.wait(timeout=10.0) == 0
     assert lis.predictions, "no ~/prediction received"
     assert math.isfinite(lis.predictions[-1].pose.pose.position.x)
+    # output.prediction_rate (default 20 Hz) in header-stamp time: never faster; a few
+    # may be lost on the way (best-effort reception), so the lower bound is loose
+    stamps = [p.header.stamp.sec + 1e-9 * p.header.stamp.nanosec for p in lis.predictions]
+    span = stamps[-1] - stamps[0]
+    assert span > 1.0, stamps
+    assert 10.0 <= (len(stamps) - 1) / span <= 20.0 + 1e-3, (len(stamps), span)
 
 
 @needs_core

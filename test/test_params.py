@@ -295,6 +295,8 @@ def test_duplicate_joint_names_refused() -> None:
     ("output.events_log", "logs/../../escape.jsonl"),
     ("output.events_log", ""),
     ("output.prediction_frame", "/map"),
+    ("output.prediction_rate", 0.0),
+    ("output.prediction_rate", 5000.0),
     ("inputs.localization.type", "pose"),
     ("inputs.qos", "best_effort"),
     ("inputs.joint_states.topic", ""),
