@@ -3,8 +3,9 @@
 Prints: bare rosbags read + deserialise of every message; our bag reader alone
 (``bag.iter_samples``); the fused decoder (``fastpath``) beside the two-step cdr + convert
 path per message type; the whole ``kinematic-monitor replay --no-report`` command as a
-subprocess (start-up included); the report generation alone; and the ratios against the
-targets (replay <= 2x the bare read, >= 100x real time, report <= 5 s).
+subprocess (start-up included), by default (read-ahead on a machine with two or more
+cores) and with ``--read-ahead off``; the report generation alone; and the ratios against
+the targets (replay <= 2x the bare read, >= 100x real time, report <= 5 s).
 
 Usage: python bench/replay_speed.py [--bag DIR] [--duration S] [--storage sqlite3|mcap]
                                    [--baseline SRC_DIR]
@@ -149,10 +150,12 @@ def core_only(bag: Path, params: Path) -> tuple[float, float]:
 
 
 def replay_command(bag: Path, params: Path, out: Path,
-                   src: Path | None = None) -> tuple[float, float, str]:
+                   src: Path | None = None, extra: tuple[str, ...] = ()
+                   ) -> tuple[float, float, str]:
     """The whole command in a fresh interpreter: (wall, child cpu, summary line).
 
-    ``src``: run the package found in this folder instead of the installed one.
+    ``src``: run the package found in this folder instead of the installed one;
+    ``extra``: more command-line options. CPU counts every process (the read-ahead too).
     """
     env = {**os.environ, "CI": "true"}
     if src is not None:
@@ -161,7 +164,8 @@ def replay_command(bag: Path, params: Path, out: Path,
     before = os.times()
     t = time.perf_counter()
     r = subprocess.run([sys.executable, "-c", RUN_REPLAY, "replay", str(bag), "--params",
-                        str(params), "--out", str(out), "--no-report", "--json-summary"],
+                        str(params), "--out", str(out), "--no-report", "--json-summary",
+                        *extra],
                        capture_output=True, text=True, env=env, timeout=3600,
                        cwd=src)  # `python -c` puts the working folder first on sys.path
     wall = time.perf_counter() - t
@@ -190,6 +194,13 @@ def report_time(out: Path, bag: Path) -> tuple[float, float, int]:
     return time.perf_counter() - t, time.process_time() - c, len(html)
 
 
+def read_ahead_used(messages: int) -> bool:
+    """Whether the default ``--read-ahead auto`` reads ahead on this machine and bag."""
+    from kinematic_monitor import readahead
+
+    return readahead.wanted("auto", messages)
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--bag", type=Path, help="existing simulated bag folder (with params.yaml)")
@@ -213,6 +224,10 @@ def main() -> int:
         ours_w, ours_c, ns = our_reader(bag, params)
         core_w, core_c = core_only(bag, params)
         rep_w, rep_c, summary_line = replay_command(bag, params, tmpdir / "out")
+        one_w, one_c, one_line = replay_command(bag, params, tmpdir / "out_one",
+                                                extra=("--read-ahead", "off"))
+        if json.loads(one_line)["events"] != json.loads(summary_line)["events"]:
+            raise SystemExit("--read-ahead off gives other events than the default")
         base = None
         if args.baseline is not None:
             base = replay_command(bag, params, tmpdir / "out_baseline", args.baseline)
@@ -228,6 +243,7 @@ def main() -> int:
     print(f"{'bag.iter_samples (read, decode, order)':44s} {ours_w:8.2f} {ours_c:8.2f}")
     print(f"{'bag + Monitor.process only (in-process)':44s} {core_w:8.2f} {core_c:8.2f}")
     print(f"{'replay --no-report (subprocess, start-up)':44s} {rep_w:8.2f} {rep_c:8.2f}")
+    print(f"{'  the same, --read-ahead off (one process)':44s} {one_w:8.2f} {one_c:8.2f}")
     print(f"{f'report rendering (html {size / 1024:.0f} kB)':44s} {rpt_w:8.2f} "
           f"{rpt_c:8.2f}")
     if base is not None:
@@ -245,7 +261,10 @@ def main() -> int:
     print(f"per message (cpu): bare {bare_c * per:.1f} us, reader {ours_c * per:.1f} us, "
           f"reader + monitor {core_c * per:.1f} us, replay command {rep_c * per:.1f} us")
     ratio_w, ratio_c = rep_w / bare_w, rep_c / max(bare_c, 1e-9)
-    print(f"replay / bare read: {ratio_w:.2f}x wall, {ratio_c:.2f}x cpu (target <= 2x)")
+    print(f"replay / bare read: {ratio_w:.2f}x wall, {ratio_c:.2f}x cpu (target <= 2x wall; "
+          f"read-ahead: {'yes' if read_ahead_used(n) else 'no'})")
+    print(f"replay --read-ahead off / bare read: {one_w / bare_w:.2f}x wall, "
+          f"{one_c / max(bare_c, 1e-9):.2f}x cpu")
     print(f"replay / core alone: {rep_w / core_w:.2f}x wall (outputs, time series, start-up)")
     print(f"replay speed: {duration / rep_w:.0f}x real time wall, "
           f"{duration / max(rep_c, 1e-9):.0f}x cpu (target >= 100x)")

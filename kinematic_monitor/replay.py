@@ -10,12 +10,13 @@ only when the run completes (see ``outputs.OutputDir``). Exit codes: 0 ok, 1 a
 from __future__ import annotations
 
 import argparse
+import functools
 import json
 import math
 import sys
 import time
 from collections import Counter
-from collections.abc import Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -40,6 +41,7 @@ REPORT_HTML = "report.html"
 ANNOTATED_BAG = "annotated_bag"
 OUTPUT_NAMES = (EVENTS_JSON, EVENTS_CSV, TIMESERIES_CSV, REPORT_HTML, ANNOTATED_BAG)
 FAIL_ON = ("never", "warn", "error")
+_READ_AHEAD_MIN = 20_000  # readahead.MIN_MESSAGES (not imported here: --help stays light)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -61,6 +63,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "outputs (diagnostics, prediction, events)")
     parser.add_argument("--json-summary", action="store_true",
                         help="print one line of JSON with the run's summary on stdout")
+    parser.add_argument("--read-ahead", choices=("auto", "on", "off"), default="auto",
+                        help="read and decode the bag in a second process while this one "
+                             "runs the checks (auto: with two or more cores and a bag of "
+                             f"{_READ_AHEAD_MIN} messages or more)")
     parser.add_argument("--series-interval", type=float, default=DEFAULT_MIN_INTERVAL,
                         metavar="S", help="time-series row spacing in seconds "
                                           f"(default {DEFAULT_MIN_INTERVAL})")
@@ -332,10 +338,18 @@ def _open_bag(path: str, config: Any) -> Any:
         raise UsageError(f"bag {path!r}: {exc}") from None
 
 
-def _iter_with_progress(source: Any, show: bool) -> Iterator[Any]:
-    """The bag's samples, with a tqdm bar over messages read when ``show``."""
+def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> Iterator[Any]:
+    """The bag's samples, with a tqdm bar over messages read when ``show``; read and
+    decoded in a child process when ``read_ahead`` (see ``readahead``)."""
+    if read_ahead:
+        from kinematic_monitor import readahead
+
+        samples: Callable[..., Iterator[Any]] = functools.partial(readahead.iter_samples,
+                                                                  source)
+    else:
+        samples = source.iter_samples
     if not show:
-        yield from source.iter_samples()
+        yield from samples()
         return
     from tqdm import tqdm
 
@@ -349,7 +363,7 @@ def _iter_with_progress(source: Any, show: bool) -> Iterator[Any]:
         done[0] = position
 
     try:
-        yield from source.iter_samples(progress=progress, progress_every=2000)
+        yield from samples(progress=progress, progress_every=2000)
     finally:
         bar.close()
 
@@ -392,9 +406,10 @@ def _counters(monitor: Any, source: Any) -> dict[str, int]:
 def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False,
            report: bool = True, write_bag: bool = False,
            series_interval: float = DEFAULT_MIN_INTERVAL,
-           progress: bool | None = None) -> RunResult:
+           progress: bool | None = None, read_ahead: str = "auto") -> RunResult:
     """Run a replay and commit its outputs; raise ``UsageError`` for bad input.
 
+    ``read_ahead``: 'auto', 'on' or 'off' (``--read-ahead``, see ``readahead.wanted``).
     Returns the run's result (events as ``events.json`` records).
     """
     if not (math.isfinite(series_interval) and 0.0 <= series_interval <= 10.0):
@@ -408,9 +423,12 @@ def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False
         source.close()
         raise UsageError(str(exc)) from None
     try:
+        from kinematic_monitor import readahead
+
+        ahead = readahead.wanted(read_ahead, int(getattr(source, "message_count", 0) or 0))
         result = _run(source, config, outdir, str(bag_path), report=report,
                       write_bag=write_bag, series_interval=series_interval,
-                      progress=progress)
+                      progress=progress, read_ahead=ahead)
     finally:
         source.close()
     result.elapsed = time.perf_counter() - wall0
@@ -418,7 +436,8 @@ def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False
 
 
 def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: bool,
-         write_bag: bool, series_interval: float, progress: bool | None) -> RunResult:
+         write_bag: bool, series_interval: float, progress: bool | None,
+         read_ahead: bool = False) -> RunResult:
     from kinematic_monitor.events import events_to_csv, events_to_json
     from kinematic_monitor.monitor import Monitor
 
@@ -428,7 +447,7 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
         monitor = Monitor(config)
         with outdir.open_text(TIMESERIES_CSV) as ts_fh:
             rec = _Recorder(monitor, ts_fh, series_interval, keep_rows=write_bag)
-            for s in _iter_with_progress(source, show):
+            for s in _iter_with_progress(source, show, read_ahead):
                 rec.feed(s)
             if rec.samples == 0:
                 raise UsageError(f"bag {bag_path!r} holds no usable message on the "
@@ -635,7 +654,7 @@ def run(args: argparse.Namespace) -> int:
     """Entry point of ``kinematic-monitor replay``; returns the exit code."""
     result = replay(args.bag, args.params, args.out, force=args.force,
                     report=not args.no_report, write_bag=args.write_bag,
-                    series_interval=args.series_interval)
+                    series_interval=args.series_interval, read_ahead=args.read_ahead)
     code = EXIT_FAIL_ON if fail_on_met(result.events, args.fail_on) else EXIT_OK
     if args.json_summary:
         summary = result.summary()

@@ -174,8 +174,9 @@ def sweep_bag(task: Mapping[str, Any]) -> dict[str, Any]:
     try:
         if marker.exists():
             marker.unlink()
+        # read_ahead off: the sweep already keeps every core busy with one bag each
         result = replay(task["bag"], task["params"], str(out_dir), force=True, report=True,
-                        progress=False)
+                        progress=False, read_ahead="off")
         rec.events = result.events
         rec.duration = result.duration
         rec.distance = result.distance

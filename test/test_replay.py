@@ -18,7 +18,7 @@ from typing import Any
 
 import pytest
 
-from kinematic_monitor import cli, replay
+from kinematic_monitor import cli, readahead, replay
 from kinematic_monitor.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter, read_timeseries
 
 # DESIGN.md section 4: the exact keys of an events.json entry and the allowed values
@@ -144,6 +144,20 @@ def test_replay_does_not_change_the_core_result(jump_bag: Path, tmp_path: Path) 
     direct = events_to_json(str(jump_bag), mon.events)
     assert _replay(jump_bag, tmp_path / "o", "--no-report") == 0
     assert json.loads((tmp_path / "o" / "events.json").read_text()) == direct
+
+
+@pytest.mark.skipif(not readahead.available(),
+                    reason="read-ahead needs fork and two usable cores")
+def test_read_ahead_gives_byte_identical_outputs(jump_bag: Path, tmp_path: Path) -> None:
+    # --read-ahead only moves the reading into a second process: every output file and
+    # the summary stay the same byte for byte
+    summaries = {}
+    for mode in ("off", "on"):
+        out = tmp_path / mode
+        assert _replay(jump_bag, out, "--no-report", "--read-ahead", mode) == 0
+        summaries[mode] = {p.name: p.read_bytes() for p in sorted(out.iterdir())}
+    assert summaries["on"] == summaries["off"]
+    assert set(summaries["on"]) == {"events.json", "events.csv", "timeseries.csv"}
 
 
 @pytest.mark.parametrize("storage", ["sqlite3", "mcap"])
@@ -350,3 +364,19 @@ def test_timeseries_keeps_peaks_and_streams(tmp_path: Path) -> None:
     assert r.min() == -5.0
     assert s["level:c"].max() == 2.0 and s["level_max"].max() == 2.0
     assert s["x"][-1] == 999.0  # pose is the latest of its window
+
+
+def test_timeseries_row_text_format(tmp_path: Path) -> None:
+    # time with 6 decimals, other values with 6 significant digits, non-finite as "nan",
+    # levels and level_max as integers (the CSV the report and other tools read back)
+    path = tmp_path / "ts.csv"
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        w = TimeseriesWriter(fh, ["a", "b", "c"], ["k"], min_interval=0.1)
+        w.add(1.8e9 + 0.25, x=1234.56789, y=-math.inf, yaw=math.inf, speed=1e-7,
+              residuals={"a": -0.000123456789, "b": math.inf, "c": math.nan}, levels={"k": 3})
+        w.close()
+    lines = path.read_text().splitlines()
+    assert lines[0] == ("time,x,y,yaw,speed,steering,accel,res:a,res:b,res:c,level:k,"
+                        "level_max")
+    assert lines[1] == ("1800000000.250000,1234.57,nan,nan,1e-07,nan,nan,-0.000123457,nan,nan,"
+                        "3,3")
