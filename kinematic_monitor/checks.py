@@ -152,6 +152,8 @@ class LevelTracker:
         self, candidate: int, stamp: float, onset: float = math.nan, end_hint: float = math.nan
     ) -> str | None:
         """Feed the candidate level at ``stamp`` [s]; ``onset``/``end_hint`` estimate times."""
+        if candidate <= OK and self.level == OK and not self._above_since:
+            return None  # OK and staying OK: what the general path below gives, unchanged
         for lvl in (WARN, ERROR):
             if candidate >= lvl:
                 self._above_since.setdefault(lvl, stamp)
