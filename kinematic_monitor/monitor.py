@@ -35,7 +35,7 @@ from __future__ import annotations
 import functools
 import math
 from collections import deque
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -388,11 +388,11 @@ class Monitor:
                 self.counters["rejected_type"] += 1
                 return
         stamp = s.stamp
-        if not isinstance(stamp, (int, float)) or not isfinite(stamp):
+        if type(stamp) is not float and not isinstance(stamp, (int, float)):
             self.counters["rejected_nan"] += 1
             return
-        if not 0.0 < stamp < MAX_STAMP:
-            self.counters["rejected_bad_stamp"] += 1
+        if not 0.0 < stamp < MAX_STAMP:  # also false for NaN: then counted as NaN
+            self.counters["rejected_nan" if not isfinite(stamp) else "rejected_bad_stamp"] += 1
             return
         if stamp < self.now:
             self.counters["rejected_out_of_order"] += 1
@@ -408,7 +408,7 @@ class Monitor:
                 return
         elif kind == _GNSS:
             return
-        if not isfinite(self._first_stamp):
+        if self._first_stamp != self._first_stamp:  # NaN until the first sample
             self._first_stamp = stamp
             self._grid_k = math.floor(stamp / self.period) + 1
             self._next_decision = self._grid_k * self.period
@@ -1364,6 +1364,82 @@ class Monitor:
                 if isfinite(v):
                     values[f"{check}.{key}"] = float(v)
         return levels, values
+
+    def series_reader(self, channels: Sequence[str], checks: Sequence[str]
+                      ) -> Callable[[], tuple[list[float], list[int]]]:
+        """A function giving what :meth:`series_values` gives, as two lists in a fixed order.
+
+        ``channels``: names as in ``series_values()[1]`` ("<check>.<figure>"); ``checks``:
+        names as in ``series_values()[0]``. The function returns (the value of each channel,
+        NaN where ``series_values`` has none or it is not finite; the level of each check,
+        OK for an unknown name). For a time series written row by row: the names are
+        resolved once here instead of at every row.
+        """
+        internal = {check: ch for ch, check in SERIES_CHECKS.items()}
+        internal.update({f"input_{n}": f"input_{n}" for n in INPUTS})
+        cusum_attr = {"cusum [sigma]": "statistic", "cusum_warn [sigma]": "h_warn",
+                      "cusum_error [sigma]": "h_error"}
+        # per channel: (figures key in self._figures, figure name, CUSUM attribute or None)
+        cols: list[tuple[str, str, str | None] | None] = []
+        for name in channels:
+            check, _, key = name.partition(".")
+            ch = internal.get(check)
+            if ch is None or not key:
+                cols.append(None)
+            else:
+                cols.append((ch, key, cusum_attr.get(key) if ch in CUSUM_CHANNELS else None))
+        levs = [internal.get(c) for c in checks]
+        nan = math.nan
+        empty: dict[str, float] = {}
+
+        def read() -> tuple[list[float], list[int]]:
+            figures = self._figures
+            cusum = self._cusum
+            nis_figs = dict(figures.get("nis", empty))
+            nis_level = self._nis_status(nis_figs)[0]
+            values: list[float] = []
+            for col in cols:
+                if col is None:
+                    values.append(nan)
+                    continue
+                ch, key, attr = col
+                if attr is not None:  # series_values: the CUSUM's value over a figure's
+                    v = getattr(cusum[ch], attr)
+                    if isfinite(v):
+                        values.append(float(v))
+                        continue
+                v = (nis_figs if ch == "nis" else figures.get(ch, empty)).get(key, nan)
+                values.append(float(v) if isfinite(v) else nan)
+            needs = self._series_needs
+            if needs is None:
+                needs = self._series_needs = self._needs_by_check()
+            stale = {n for n in INPUTS if self._stale[n].level}
+            levels: list[int] = []
+            for lch in levs:
+                if lch is None:
+                    levels.append(OK)
+                    continue
+                ch = lch
+                if ch.startswith("input_"):
+                    levels.append(STALE if self._stale[ch[6:]].level else OK)
+                else:
+                    chk = cusum.get(ch)
+                    if chk is not None:
+                        level = chk.level
+                    elif ch == "slip_ratio":
+                        level = self._slip.level
+                    elif ch == "localization":
+                        level = self._jump.level
+                    elif ch == "grip":
+                        level = self._grip.level
+                    elif ch == "nis":
+                        level = nis_level
+                    else:
+                        level = OK
+                    levels.append(int(STALE if stale and needs[ch] & stale else level))
+            return values, levels
+
+        return read
 
     def _needs_by_check(self) -> dict[str, set[str]]:
         """Inputs each check needs (a stale one makes the check STALE)."""

@@ -204,6 +204,8 @@ class _Recorder:
         self._kept_at = -math.inf
         self.last_statuses: list[Any] = []
         self.channels: list[str] = []
+        # the monitor's series_reader for the writer's columns, once they are known
+        self._read: Callable[[], tuple[list[float], list[int]]] | None = None
 
     def feed(self, sample: Any) -> None:
         stamp = sample.stamp
@@ -283,6 +285,12 @@ class _Recorder:
             x, y, yaw = self.loc[0], self.loc[1], self.loc[2]
         if not math.isfinite(v):
             v = self.loc[3]
+        if self._read is not None and self.writer is not None:
+            # the columns are known: figures as lists in column order (same values)
+            res, lev = self._read()
+            self.writer.add_row(stamp, (x, y, yaw, v, self.steer, self.accel), res, lev)
+            self.accel = math.nan
+            return
         levels, residuals = mon.series_values()
         row: dict[str, Any] = {"x": x, "y": y, "yaw": yaw, "speed": v, "steering": self.steer,
                "accel": self.accel, "residuals": residuals, "levels": levels}
@@ -306,6 +314,9 @@ class _Recorder:
         for stamp, row in self.pending:
             self.writer.add(stamp, **row)
         self.pending = []
+        reader = getattr(self.monitor, "series_reader", None)
+        if callable(reader):
+            self._read = reader(self.writer.channels, self.writer.checks)
 
     def close(self) -> None:
         """Write what is still buffered."""

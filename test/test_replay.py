@@ -380,3 +380,78 @@ def test_timeseries_row_text_format(tmp_path: Path) -> None:
                         "level_max")
     assert lines[1] == ("1800000000.250000,1234.57,nan,nan,1e-07,nan,nan,-0.000123457,nan,nan,"
                         "3,3")
+
+
+def test_series_reader_gives_series_values_in_column_order(jump_bag: Path) -> None:
+    # the row path after warm-up (Monitor.series_reader + TimeseriesWriter.add_row) must
+    # see exactly what series_values gives, through a localisation jump and stale inputs
+    from kinematic_monitor.bag import open_bag
+    from kinematic_monitor.monitor import Monitor
+    from kinematic_monitor.params import load_config
+
+    config = load_config(jump_bag / "params.yaml")
+    with open_bag(jump_bag, config) as src:
+        samples = list(src.iter_samples())
+    mon = Monitor(config)
+    snapshots: list[tuple[dict[str, int], dict[str, float]]] = []
+    next_t = -math.inf
+    for s in samples:
+        mon.process(s)
+        if s.stamp >= next_t:
+            snapshots.append(mon.series_values())
+            next_t = s.stamp + 0.05
+    mon.check_stale(samples[-1].stamp + 3.0)  # every input silent: STALE levels
+    snapshots.append(mon.series_values())
+    channels = sorted({k for _, v in snapshots for k in v} | {"yaw_rate.no_such [-]", "x.y"})
+    checks = sorted({k for lv, _ in snapshots for k in lv} | {"no_such_check"})
+    assert any(lv.get("localization_jump", 0) > 0 for lv, _ in snapshots)  # the jump shows
+    assert any(3 in lv.values() for lv, _ in snapshots)  # and STALE at the end
+
+    # the same run again, reading with series_reader at the same moments
+    mon = Monitor(config)
+    read = mon.series_reader(channels, checks)
+    got: list[tuple[list[float], list[int]]] = []
+    next_t = -math.inf
+    for s in samples:
+        mon.process(s)
+        if s.stamp >= next_t:
+            got.append(read())
+            next_t = s.stamp + 0.05
+    mon.check_stale(samples[-1].stamp + 3.0)
+    got.append(read())
+    assert len(got) == len(snapshots)
+    for (levels, values), (res, lev) in zip(snapshots, got, strict=True):
+        want = [values.get(c, math.nan) for c in channels]
+        assert [repr(v) for v in res] == [repr(v) for v in want]
+        assert lev == [levels.get(c, 0) for c in checks]
+
+
+def test_add_row_writes_what_add_writes(tmp_path: Path) -> None:
+    # positional rows (add_row) and named rows (add) give the same CSV, peaks and all
+    import random
+
+    channels, checks = ["a", "b", "c"], ["k", "m"]
+    texts = []
+    for mode in ("add", "add_row"):
+        fh = io.StringIO()
+        w = TimeseriesWriter(fh, channels, checks, min_interval=0.1)
+        r2 = random.Random(5)
+        for k in range(400):  # 100 Hz into 10 Hz rows: four values per window
+            t = 1.8e9 + 0.025 * k
+            base = [r2.choice([r2.gauss(0, 5), math.nan]) for _ in range(6)]
+            res = [r2.choice([r2.gauss(0, 1), math.nan, math.inf]) for _ in channels]
+            lev = [r2.choice([0, 0, 1, 2, 3]) for _ in checks]
+            if mode == "add":
+                w.add(t, *base, residuals=dict(zip(channels, res, strict=True)),
+                      levels=dict(zip(checks, lev, strict=True)))
+            else:
+                w.add_row(t, base, res, lev)
+        if mode == "add":
+            w.add(math.nan)
+        else:
+            w.add_row(math.nan, [0.0] * 6, [0.0] * 3, [0, 0])
+        w.close()
+        texts.append(fh.getvalue())
+        assert w.ignored == 1
+    assert texts[0] == texts[1]
+    assert len(texts[0].splitlines()) == 1 + 100
