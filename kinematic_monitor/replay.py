@@ -364,6 +364,10 @@ def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> It
         return
     from tqdm import tqdm
 
+    if read_ahead:
+        # no tqdm monitor thread: the read-ahead forks, and a fork should not copy a
+        # process that runs other threads
+        tqdm.monitor_interval = 0
     total = int(getattr(source, "message_count", 0)) or None
     bar = tqdm(total=total, unit="msg", unit_scale=True, desc="replay", file=sys.stderr,
                mininterval=0.5)
