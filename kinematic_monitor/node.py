@@ -244,6 +244,9 @@ class KinematicMonitorNode(Node):
         self._last_stamp = math.nan
         self._t0 = math.nan
         self._closed = False
+        # samples in stamp order waiting for their batch, and when the oldest came in
+        self._batch: list[Any] = []
+        self._batch_since = 0.0
         self.message_mode = message_mode(messages)
         self._build_core()
         self._create_io()
@@ -327,6 +330,7 @@ class KinematicMonitorNode(Node):
         are closed at the last stamp and the monitor restarts with the new configuration
         (its filter re-initialises from the next samples).
         """
+        self._flush_batch()  # samples before the change meet the thresholds they came with
         to = config.timeouts
         self.buffer.stream_timeouts.update(
             joint_states=to.joint_states, localization=to.localization, imu=to.imu)
@@ -355,6 +359,10 @@ class KinematicMonitorNode(Node):
         from kinematic_monitor.monitor import Monitor
 
         self.monitor = Monitor(cfg)
+        # processing in small batches: each wake-up of a callback costs far more in a live
+        # process than the same work warm (see bench/node_load.py)
+        self._batch_size = int(cfg.inputs.batch_size)
+        self._batch_delay = float(cfg.inputs.batch_delay)
         lag = cfg.inputs.reorder_window
         # watermark release: a sample goes out once every live input has passed its stamp
         # (at the latest after the lag); an input silent past its timeout stops holding it
@@ -518,7 +526,7 @@ class KinematicMonitorNode(Node):
                 rx_latency.append(wall() - result.stamp)
                 released = push(result, name)
                 if released:
-                    self._process_released(released)
+                    self._queue_released(released)
             except Exception as exc:  # no exception ever escapes a callback
                 self.counters["callback_errors"] += 1
                 self.get_logger().error(f"input {name}: {type(exc).__name__}: {exc}",
@@ -551,7 +559,30 @@ class KinematicMonitorNode(Node):
             return
         self.counters[f"received.{name}"] += 1
         self._rx_latency.append(time.time() - result.stamp)
-        self._process_released(self.buffer.push(result, name))
+        self._queue_released(self.buffer.push(result, name))
+
+    def _queue_released(self, released: list[Any]) -> None:
+        """Samples in stamp order: processed at once with ``inputs.batch_size`` 1, else
+        once ``inputs.batch_size`` wait or the oldest has waited ``inputs.batch_delay``
+        (also checked by the 10 Hz tick)."""
+        if not released:
+            return
+        if self._batch_size <= 1:
+            self._process_released(released)
+            return
+        batch = self._batch
+        if not batch:
+            self._batch_since = time.monotonic()
+        batch.extend(released)
+        if (len(batch) >= self._batch_size
+                or time.monotonic() - self._batch_since >= self._batch_delay):
+            self._flush_batch()
+
+    def _flush_batch(self) -> None:
+        """Process the samples waiting for their batch."""
+        if self._batch:
+            batch, self._batch = self._batch, []
+            self._process_released(batch)
 
     def _process_released(self, released: list[Any]) -> None:
         """Feed released samples (and TimeReset markers) to the monitor in stamp order."""
@@ -580,6 +611,7 @@ class KinematicMonitorNode(Node):
             self._after_processing()
 
     def _on_reset(self, msg: Any) -> None:
+        self._flush_batch()  # what came before the declaration is processed before it
         stamp = rm.stamp_to_sec(msg.header.stamp)
         fn = getattr(self.monitor, "declare_relocalization", None)
         if callable(fn):
@@ -688,6 +720,7 @@ class KinematicMonitorNode(Node):
         self.publish_diagnostics()
 
     def _on_tick(self) -> None:
+        self._flush_batch()  # before the stale check; and inputs gone quiet send no callback
         self.monitor.check_stale(self.now_sec())
         self._handle_transitions()
         self._maybe_publish_on_level_change()
@@ -699,6 +732,7 @@ class KinematicMonitorNode(Node):
             return
         self._closed = True
         try:
+            self._flush_batch()
             self._process_released(self.buffer.flush())
             end = self._last_stamp if math.isfinite(self._last_stamp) else self.now_sec()
             self.monitor.flush(end)

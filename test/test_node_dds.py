@@ -33,6 +33,7 @@ from dds_helpers import (  # noqa: E402  (after the importorskip)
     REPO,
     DdsRun,
     Proc,
+    new_domain_id,
     write_params,
 )
 
@@ -387,3 +388,67 @@ def test_unknown_message_type_stops_start_up_naming_it(run: Run) -> None:
     node = run.node(write_params(run.tmp / "p.yaml", extra=extra))
     assert node.wait(timeout=20.0) == 2
     assert "acme_msgs/msg/SpeedReport" in node.output() and "not installed" in node.output()
+
+
+# --- batches (inputs.batch_size / inputs.batch_delay), in this process ----------------------
+
+def _node_here(monkeypatch: pytest.MonkeyPatch, tmp_path: Path, **overrides: object
+               ) -> tuple[object, object]:
+    """A node in this process (own context and domain) with parameter overrides."""
+    import rclpy
+    from rclpy.context import Context
+
+    from kinematic_monitor import node as km_node
+
+    monkeypatch.chdir(tmp_path)  # the default events log goes here
+    values = {"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
+              "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55, **overrides}
+    args = ["--ros-args"] + [a for k, v in values.items() for a in ("-p", f"{k}:={v}")]
+    ctx = Context()
+    rclpy.init(args=args, context=ctx, domain_id=new_domain_id())
+    return ctx, km_node.KinematicMonitorNode(context=ctx, console=lambda _line: None)
+
+
+@needs_core
+def test_samples_processed_in_batches(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
+    import rclpy
+
+    from kinematic_monitor.samples import ImuSample
+
+    ctx, n = _node_here(monkeypatch, tmp_path, **{"inputs.batch_size": 3,
+                                                   "inputs.batch_delay": 0.2})
+    try:
+        done = n.monitor.counters  # type: ignore[attr-defined]
+        imu = [ImuSample(1.8e9 + 0.01 * i, 0.0) for i in range(6)]
+        n._queue_released([imu[0]])  # type: ignore[attr-defined]
+        n._queue_released([imu[1]])  # type: ignore[attr-defined]
+        assert done["samples"] == 0  # waiting for the batch
+        n._queue_released([imu[2]])  # type: ignore[attr-defined]
+        assert done["samples"] == 3  # batch_size reached: all three, in order
+        n._queue_released([imu[3]])  # type: ignore[attr-defined]
+        time.sleep(0.25)
+        n._queue_released([imu[4]])  # type: ignore[attr-defined]
+        assert done["samples"] == 5  # the oldest waited batch_delay
+        n._queue_released([imu[5]])  # type: ignore[attr-defined]
+        n._on_tick()  # type: ignore[attr-defined]
+        assert done["samples"] == 6  # the tick takes what waits
+        assert done["rejected_out_of_order"] == 0
+    finally:
+        n.destroy_node()  # type: ignore[attr-defined]
+        rclpy.shutdown(context=ctx)
+
+
+@needs_core
+def test_batch_size_one_processes_each_sample_at_once(monkeypatch: pytest.MonkeyPatch,
+                                                       tmp_path: Path) -> None:
+    import rclpy
+
+    from kinematic_monitor.samples import ImuSample
+
+    ctx, n = _node_here(monkeypatch, tmp_path, **{"inputs.batch_size": 1})
+    try:
+        n._queue_released([ImuSample(1.8e9, 0.0)])  # type: ignore[attr-defined]
+        assert n.monitor.counters["samples"] == 1  # type: ignore[attr-defined]
+    finally:
+        n.destroy_node()  # type: ignore[attr-defined]
+        rclpy.shutdown(context=ctx)
