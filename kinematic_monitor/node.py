@@ -515,6 +515,7 @@ class KinematicMonitorNode(Node):
         push = self.buffer.push
         rejected = convert.Rejected
         wall = time.time
+        clock = time.monotonic
 
         def callback(msg: Any) -> None:
             try:
@@ -527,6 +528,8 @@ class KinematicMonitorNode(Node):
                 released = push(result, name)
                 if released:
                     self._queue_released(released)
+                elif self._batch and clock() - self._batch_since >= self._batch_delay:
+                    self._flush_batch()  # nothing new in order, but the batch is due
             except Exception as exc:  # no exception ever escapes a callback
                 self.counters["callback_errors"] += 1
                 self.get_logger().error(f"input {name}: {type(exc).__name__}: {exc}",

@@ -224,10 +224,10 @@ SPECS: tuple[ParamSpec, ...] = (
             choices=("sensor_data", "reliable")),
     _double("inputs.reorder_window", 0.05, "s",
             "How long samples wait so that late messages can be put in stamp order.", 0.0, 1.0),
-    ParamSpec("inputs.batch_size", "integer", 8,
+    ParamSpec("inputs.batch_size", "integer", 4,
               "Node only: samples in stamp order are processed together once this many wait "
               "(or inputs.batch_delay has passed); 1 = each at once.", "samples", 1, 1000),
-    _double("inputs.batch_delay", 0.01, "s",
+    _double("inputs.batch_delay", 0.005, "s",
             "Node only: longest time a sample in stamp order waits for its batch.", 0.0, 0.5),
     # steering and speed from other message types (replace the JointState joints)
     _string("inputs.steering.topic", "",
