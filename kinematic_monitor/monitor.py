@@ -1335,17 +1335,11 @@ class Monitor:
                             full = names[(check, key)] = f"{check}.{key}"
                         values[full] = float(v)
                 continue
-            if ch == "slip_ratio":
-                level = self._slip.level
-            elif ch == "localization":
-                level = self._jump.level
-            elif ch == "grip":
-                level = self._grip.level
-            elif ch == "nis":
+            nis_level = OK
+            if ch == "nis":
                 figs = dict(figs)
-                level = self._nis_status(figs)[0]
-            else:
-                level = OK
+                nis_level = self._nis_status(figs)[0]
+            level = self._check_level(ch, nis_level)
             if stale and needs[ch] & stale:
                 level = STALE
             levels[check] = int(level)
@@ -1423,23 +1417,27 @@ class Monitor:
                 if ch.startswith("input_"):
                     levels.append(STALE if self._stale[ch[6:]].level else OK)
                 else:
-                    chk = cusum.get(ch)
-                    if chk is not None:
-                        level = chk.level
-                    elif ch == "slip_ratio":
-                        level = self._slip.level
-                    elif ch == "localization":
-                        level = self._jump.level
-                    elif ch == "grip":
-                        level = self._grip.level
-                    elif ch == "nis":
-                        level = nis_level
-                    else:
-                        level = OK
+                    level = self._check_level(ch, nis_level)
                     levels.append(int(STALE if stale and needs[ch] & stale else level))
             return values, levels
 
         return read
+
+    def _check_level(self, ch: str, nis_level: int) -> int:
+        """Level of check ``ch`` before the stale-input rule (``nis_level``: the NIS
+        check's, from :meth:`_nis_status`)."""
+        chk = self._cusum.get(ch)
+        if chk is not None:
+            return chk.level
+        if ch == "slip_ratio":
+            return self._slip.level
+        if ch == "localization":
+            return self._jump.level
+        if ch == "grip":
+            return self._grip.level
+        if ch == "nis":
+            return nis_level
+        return OK
 
     def _needs_by_check(self) -> dict[str, set[str]]:
         """Inputs each check needs (a stale one makes the check STALE)."""
