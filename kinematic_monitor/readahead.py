@@ -32,7 +32,28 @@ MIN_MESSAGES = 20_000  # below this the fork costs more than it saves (auto mode
 # what the child reports back: the attributes iter_samples changes on the source
 BOOKKEEPING = ("position", "stats", "damage", "out_of_order", "time_jumps", "warnings")
 
-_TAG_BATCH, _TAG_END, _TAG_ERROR = b"B", b"E", b"X"
+_TAG_BATCH, _TAG_PICKLED, _TAG_END, _TAG_ERROR = b"B", b"P", b"E", b"X"
+
+
+_SCALARS = frozenset({float, int, str, bool, type(None)})
+
+
+def _plain(row: tuple[Any, ...]) -> bool:
+    """True when marshal carries every value of ``row`` as it is: builtin scalars and
+    tuples of them. (marshal would write a numpy scalar, a float subclass with the buffer
+    protocol, as bytes.)"""
+    for v in row:
+        t = type(v)
+        if t not in _SCALARS and not (t is tuple and all(type(x) in _SCALARS for x in v)):
+            return False
+    return True
+
+
+def _encode(position: int, batch: list[tuple[Any, ...]], plain: bool) -> bytes:
+    """A batch message: marshal (fast) when every row is ``_plain``, else pickle."""
+    if plain:
+        return _TAG_BATCH + marshal.dumps((position, batch))
+    return _TAG_PICKLED + pickle.dumps((position, batch))
 
 
 def usable_cores() -> int:
@@ -97,6 +118,7 @@ def _child(source: Any, conn: Any) -> None:
     kinds = {cls: k for k, cls in enumerate(SAMPLE_CLASSES)}
     getters = [attrgetter(*_field_names(cls)) for cls in SAMPLE_CLASSES]
     batch: list[tuple[Any, ...]] = []
+    plain = True
     send = conn.send_bytes
     try:
         for s in source.iter_samples():
@@ -104,11 +126,14 @@ def _child(source: Any, conn: Any) -> None:
             if k is None:
                 batch.append((OTHER, pickle.dumps(s)))
             else:
-                batch.append((k, *getters[k](s)))
+                row = (k, *getters[k](s))
+                if plain and not _plain(row):
+                    plain = False
+                batch.append(row)
             if len(batch) >= BATCH:
-                send(_TAG_BATCH + marshal.dumps((source.position, batch)))
-                batch = []
-        send(_TAG_BATCH + marshal.dumps((source.position, batch)))
+                send(_encode(source.position, batch, plain))
+                batch, plain = [], True
+        send(_encode(source.position, batch, plain))
         send(_TAG_END + pickle.dumps({a: getattr(source, a) for a in BOOKKEEPING}))
     except BaseException as exc:  # noqa: BLE001 - every failure goes to the parent
         try:
@@ -117,7 +142,7 @@ def _child(source: Any, conn: Any) -> None:
             payload = pickle.dumps(RuntimeError(f"{type(exc).__name__}: {exc}"))
         try:  # what was read before the failure first, as in-process reading gives it
             if batch:
-                send(_TAG_BATCH + marshal.dumps((source.position, batch)))
+                send(_encode(source.position, batch, plain))
             send(_TAG_ERROR + payload)
         except OSError:  # the parent has gone
             pass
@@ -153,8 +178,8 @@ def iter_samples(source: Any, progress: Callable[[int, int], None] | None = None
                 raise RuntimeError("read-ahead: the reading process ended without a result "
                                    f"(exit code {proc.exitcode})") from None
             tag, body = data[:1], data[1:]
-            if tag == _TAG_BATCH:
-                position, batch = loads(body)
+            if tag == _TAG_BATCH or tag == _TAG_PICKLED:
+                position, batch = loads(body) if tag == _TAG_BATCH else pickle.loads(body)
                 for t in batch:
                     k = t[0]
                     yield makers[k](t) if k >= 0 else pickle.loads(t[1])

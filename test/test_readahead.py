@@ -156,3 +156,19 @@ def test_replay_help_names_the_same_threshold() -> None:
     from kinematic_monitor import replay
 
     assert replay._READ_AHEAD_MIN == readahead.MIN_MESSAGES
+
+
+def test_fields_that_marshal_cannot_carry_cross_pickled(tmp_path: Path) -> None:
+    # a field-path input can give numpy scalars; the batch then goes pickled, same values
+    import numpy as np
+
+    bag = write_bag(tmp_path / "b", StoragePlugin.SQLITE3, seconds=0.5)
+    sent = [ChassisSample(T0, steer=np.float64(0.1), speed=3.0), ImuSample(T0 + 0.01, 0.2)]
+    with open_bag(bag, CFG) as src:
+        src.iter_samples = lambda *_a, **_k: iter(sent)  # type: ignore[method-assign]
+        got = list(readahead.iter_samples(src))
+    assert _same(got, sent)
+    assert type(got[0].steer) is np.float64  # type: ignore[attr-defined]
+    # inside a tuple field too (a covariance read through numpy)
+    assert not readahead._plain((2, T0, (0.1, np.float64(0.2))))
+    assert readahead._plain((2, T0, 1.0, "map", (0.1, 0.2), ()))
