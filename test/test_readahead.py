@@ -172,3 +172,19 @@ def test_fields_that_marshal_cannot_carry_cross_pickled(tmp_path: Path) -> None:
     # inside a tuple field too (a covariance read through numpy)
     assert not readahead._plain((2, T0, (0.1, np.float64(0.2))))
     assert readahead._plain((2, T0, 1.0, "map", (0.1, 0.2), ()))
+
+
+def test_exception_that_does_not_pickle_arrives_by_name(tmp_path: Path) -> None:
+    bag = write_bag(tmp_path / "b", StoragePlugin.SQLITE3, seconds=0.5)
+
+    class LocalDecodeError(Exception):  # a local class: pickle cannot name it
+        pass
+
+    def broken(*_a: object, **_k: object) -> object:
+        raise LocalDecodeError("decoder state lost")
+        yield  # pragma: no cover
+
+    with open_bag(bag, CFG) as src:
+        src.iter_samples = broken  # type: ignore[method-assign]
+        with pytest.raises(RuntimeError, match="LocalDecodeError: decoder state lost"):
+            list(readahead.iter_samples(src))
