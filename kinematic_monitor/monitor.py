@@ -1315,35 +1315,18 @@ class Monitor:
         cusum = self._cusum
         for ch, check in SERIES_CHECKS.items():
             figs = self._figures.get(ch, {})
-            chk = cusum.get(ch)
-            if chk is not None:
-                level = chk.level
-                # the figures, then the CUSUM's three (never among the figures)
-                for key, v in figs.items():
-                    if isfinite(v):
-                        full = names.get((check, key))
-                        if full is None:
-                            full = names[(check, key)] = f"{check}.{key}"
-                        values[full] = float(v)
-                levels[check] = int(STALE if stale and needs[ch] & stale else level)
-                for key, v in (("cusum [sigma]", chk.statistic),
-                               ("cusum_warn [sigma]", chk.h_warn),
-                               ("cusum_error [sigma]", chk.h_error)):
-                    if isfinite(v):
-                        full = names.get((check, key))
-                        if full is None:
-                            full = names[(check, key)] = f"{check}.{key}"
-                        values[full] = float(v)
-                continue
             nis_level = OK
             if ch == "nis":
                 figs = dict(figs)
                 nis_level = self._nis_status(figs)[0]
             level = self._check_level(ch, nis_level)
-            if stale and needs[ch] & stale:
-                level = STALE
-            levels[check] = int(level)
-            for key, v in figs.items():
+            levels[check] = int(STALE if stale and needs[ch] & stale else level)
+            items = list(figs.items())
+            chk = cusum.get(ch)
+            if chk is not None:  # the figures, then the CUSUM's three (never among them)
+                items += [("cusum [sigma]", chk.statistic), ("cusum_warn [sigma]", chk.h_warn),
+                          ("cusum_error [sigma]", chk.h_error)]
+            for key, v in items:
                 if isfinite(v):
                     full = names.get((check, key))
                     if full is None:
