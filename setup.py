@@ -56,8 +56,8 @@ setup(
     license="Apache-2.0",
     entry_points={
         "console_scripts": [
-            "kinematic-monitor = kinematic_monitor.cli:main",
-            "kinematic_monitor = kinematic_monitor.node:main",
+            "kinematic-monitor = kinematic_monitor.apps.cli:main",
+            "kinematic_monitor = kinematic_monitor.ros.node:main",
         ],
     },
 )

@@ -5,7 +5,7 @@ Usage: python bench/bag_read.py [--minutes 10] [--keep DIR] [BAG ...]
 Without BAG arguments it writes a bag with JointState 100 Hz (6 joints), Imu 200 Hz and
 Odometry 50 Hz (10 minutes: 210 000 messages) in both storages, then prints for each:
 raw records only; raw + rosbags typestore deserialise; raw + our cdr field decoders;
-kinematic_monitor.bag.iter_samples() (decode + validate + samples + stamp ordering).
+kinematic_monitor.io.bag.iter_samples() (decode + validate + samples + stamp ordering).
 """
 
 from __future__ import annotations
@@ -21,8 +21,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from rosbags.rosbag2 import Reader, StoragePlugin, Writer  # noqa: E402
 from rosbags.typesys import Stores, get_typestore  # noqa: E402
 
-from kinematic_monitor import cdr  # noqa: E402
-from kinematic_monitor.bag import open_bag  # noqa: E402
+from kinematic_monitor.io import cdr  # noqa: E402
+from kinematic_monitor.io.bag import open_bag  # noqa: E402
 
 TS = get_typestore(Stores.ROS2_HUMBLE)
 TOPICS = {
@@ -115,7 +115,7 @@ def main() -> None:
                 for name, fn in (
                     ("raw read", raw_only),
                     ("raw + rosbags deserialise", raw_deserialise),
-                    ("raw + kinematic_monitor.cdr", raw_cdr),
+                    ("raw + kinematic_monitor.io.cdr", raw_cdr),
                     ("kinematic_monitor iter_samples", ours),
                 ):
                     t = time.perf_counter()

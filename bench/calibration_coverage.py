@@ -61,7 +61,8 @@ class SeedResult:
 
 def simulated_samples(seed: int, duration: float) -> tuple[list[Any], dict[str, float]]:
     """Samples of one simulated gentle drive with both faults, and its parameter mapping."""
-    from kinematic_monitor.detection_eval import samples_from_records
+    from grading import samples_from_records
+
     from kinematic_monitor.sim import sensors
     from kinematic_monitor.sim.bagout import vehicle_params
     from kinematic_monitor.sim.faults import SteeringOffset, WheelRadiusError, apply_faults
@@ -80,7 +81,7 @@ def simulated_samples(seed: int, duration: float) -> tuple[list[Any], dict[str, 
 
 def run_seed(seed: int, duration: float, n_boot: int = 200) -> SeedResult:
     """Calibrate one simulated drive (see the module docstring)."""
-    from kinematic_monitor import calibration as cal
+    from kinematic_monitor.core.calibration import estimate as cal
 
     samples, values = simulated_samples(seed, duration)
     res = cal.calibrate(samples, values, cal.SelectionRules(min_usable=min(60.0, duration / 4)),

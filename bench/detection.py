@@ -2,7 +2,7 @@
 
 Usage: ``.venv/bin/python bench/detection.py [--short] [--cases NAME,...] [-v]``
 
-Builds the suite of ``kinematic_monitor.detection_eval.build_suite`` (30 min of gentle dry
+Builds the suite of ``grading.build_suite`` (30 min of gentle dry
 driving, slip on ice/wet/snow, localisation jumps and heading drift, a steering offset, and
 an independent set driven by commonroad's ``vehicle_dynamics_std``), runs every case
 through the replay pipeline (sensors with the stated noise -> faults -> records ->
@@ -20,7 +20,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from kinematic_monitor import detection_eval as de  # noqa: E402
+import grading as de
 
 
 def main(argv: list[str] | None = None) -> int:

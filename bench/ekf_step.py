@@ -21,8 +21,8 @@ import time
 import numpy as np
 from filterpy.kalman import ExtendedKalmanFilter
 
-from kinematic_monitor import model as m
-from kinematic_monitor.filter import BicycleEKF, FilterNoise
+from kinematic_monitor.core import model as m
+from kinematic_monitor.core.ekf import BicycleEKF, FilterNoise
 
 PARAMS = m.VehicleParams(wheelbase=2.7, cg_to_rear_axle=1.35, wheel_radius=0.31, track_width=1.55)
 NOISE = FilterNoise()

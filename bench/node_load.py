@@ -7,7 +7,7 @@ the node's CPU use from /proc/<pid>/stat. Then, in this same process, the core's
 (Monitor.process over a recorded-like mix) beside a bare filterpy EKF step, as a ratio.
 
 Compare figures within one run only (shared, noisy machine; see PERF_NOTES.md).
-Message mode: ``raw`` = serialized bytes decoded by kinematic_monitor.fastpath, ``typed`` =
+Message mode: ``raw`` = serialized bytes decoded by kinematic_monitor.io.fastpath, ``typed`` =
 rclpy message objects (KINEMATIC_MONITOR_MESSAGES); both are run in the same invocation.
 ``--floor`` adds a node that only counts the same messages (the executor + DDS floor).
 Usage: python bench/node_load.py [--quick] [--repeat N] [--nominal-only] [--floor]
@@ -161,9 +161,9 @@ def core_cost(n_seconds: float = 20.0) -> tuple[float, float, float]:
     import numpy as np
     from filterpy.kalman import ExtendedKalmanFilter
 
-    from kinematic_monitor import params
-    from kinematic_monitor.monitor import Monitor
-    from kinematic_monitor.samples import ChassisSample, ImuSample, LocalizationSample
+    from kinematic_monitor.config import params
+    from kinematic_monitor.core.monitor import Monitor
+    from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 
     cfg = params.validate({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
                            "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55,

@@ -31,7 +31,7 @@ from pathlib import Path
 RUN_REPLAY = (
     "import sys\n"
     "from kinematic_monitor import cli\n"
-    "cli.SUBCOMMANDS.setdefault('replay', 'kinematic_monitor.replay')\n"
+    "cli.SUBCOMMANDS.setdefault('replay', 'kinematic_monitor.apps.replay')\n"
     "sys.exit(cli.main(sys.argv[1:]))\n"
 )
 
@@ -61,9 +61,9 @@ def bare_read(bag: Path) -> tuple[float, float, int]:
 
 
 def our_reader(bag: Path, params: Path) -> tuple[float, float, int]:
-    """kinematic_monitor.bag: read, decode the used fields, convert, order by stamp."""
-    from kinematic_monitor.bag import open_bag
-    from kinematic_monitor.params import load_config
+    """kinematic_monitor.io.bag: read, decode the used fields, convert, order by stamp."""
+    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.io.bag import open_bag
 
     cfg = load_config(params)
     t, c = time.perf_counter(), time.process_time()
@@ -82,9 +82,9 @@ def decode_compare(bag: Path, params: Path, reps: int = 3) -> list[tuple[str, in
     """
     from rosbags.rosbag2 import Reader
 
-    from kinematic_monitor import cdr, convert, fastpath
-    from kinematic_monitor.bag import inputs_from_config
-    from kinematic_monitor.params import load_config
+    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.io import cdr, convert, fastpath
+    from kinematic_monitor.io.bag import inputs_from_config
 
     inp = inputs_from_config(load_config(params))
     jmap = convert.JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints)
@@ -133,9 +133,9 @@ def decode_compare(bag: Path, params: Path, reps: int = 3) -> list[tuple[str, in
 
 def core_only(bag: Path, params: Path) -> tuple[float, float]:
     """Bag reader + Monitor.process on every sample, in-process, no outputs at all."""
-    from kinematic_monitor.bag import open_bag
-    from kinematic_monitor.monitor import Monitor
-    from kinematic_monitor.params import load_config
+    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.core.monitor import Monitor
+    from kinematic_monitor.io.bag import open_bag
 
     cfg = load_config(params)
     mon = Monitor(cfg)
@@ -184,8 +184,8 @@ def report_time(out: Path, bag: Path) -> tuple[float, float, int]:
     matplotlib.use("Agg")
     import matplotlib.pyplot  # noqa: F401 - import cost is not the report's
 
-    from kinematic_monitor.report import ReportData, render_report
-    from kinematic_monitor.timeseries import read_timeseries
+    from kinematic_monitor.apps.report import ReportData, render_report
+    from kinematic_monitor.io.timeseries import read_timeseries
 
     t, c = time.perf_counter(), time.process_time()
     series = read_timeseries(out / "timeseries.csv")
@@ -196,7 +196,7 @@ def report_time(out: Path, bag: Path) -> tuple[float, float, int]:
 
 def read_ahead_used(messages: int) -> bool:
     """Whether the default ``--read-ahead auto`` reads ahead on this machine and bag."""
-    from kinematic_monitor import readahead
+    from kinematic_monitor.io import readahead
 
     return readahead.wanted("auto", messages)
 

@@ -27,7 +27,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from kinematic_monitor import sweep  # noqa: E402
+from kinematic_monitor.apps import sweep  # noqa: E402
 
 SCENARIOS = ("mixed_loop", "circle_ice_patch", "figure_eight", "brake_on_ice",
              "circle_wet_patch", "slalom", "launch_on_snow", "skidpad_circle")
@@ -49,9 +49,9 @@ def make_bags(root: Path, n: int, seconds: float) -> None:
 
 
 def _warm() -> bool:
-    import kinematic_monitor.monitor  # noqa: F401
-    import kinematic_monitor.replay  # noqa: F401
-    import kinematic_monitor.report  # noqa: F401
+    import kinematic_monitor.apps.replay  # noqa: F401
+    import kinematic_monitor.apps.report  # noqa: F401
+    import kinematic_monitor.core.monitor  # noqa: F401
 
     return True
 

@@ -2,6 +2,6 @@
 
 import sys
 
-from kinematic_monitor.cli import main
+from kinematic_monitor.apps.cli import main
 
 sys.exit(main())

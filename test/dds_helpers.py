@@ -99,8 +99,8 @@ class Proc:
 
 def start_node(params_file: str | os.PathLike[str], domain: int, cwd: str | os.PathLike[str],
                executor: str = "auto", extra_ros_args: Sequence[str] = ()) -> Proc:
-    """Start ``python -m kinematic_monitor.node --ros-args --params-file FILE`` in ``cwd``."""
-    argv = [sys.executable, "-m", "kinematic_monitor.node", "--ros-args",
+    """Start ``python -m kinematic_monitor.ros.node --ros-args --params-file FILE`` in ``cwd``."""
+    argv = [sys.executable, "-m", "kinematic_monitor.ros.node", "--ros-args",
             "--params-file", str(params_file), *extra_ros_args]
     env = ros_env(domain, KINEMATIC_MONITOR_EXECUTOR=executor)
     return Proc(argv, env, cwd, name="node")
@@ -350,8 +350,8 @@ def _publish_main(argv: Sequence[str]) -> int:
     from rclpy.qos import QoSProfile, ReliabilityPolicy
     from sensor_msgs.msg import Imu, JointState
 
-    from kinematic_monitor import ros_msgs as rm
-    from kinematic_monitor.samples import ChassisSample, ImuSample, LocalizationSample
+    from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
+    from kinematic_monitor.ros import messages as rm
 
     stop = {"flag": False}
 

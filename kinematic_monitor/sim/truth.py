@@ -7,7 +7,7 @@ Definitions (all thresholds are fields of :class:`TruthConfig`; defaults in brac
 
 ``lateral_slip``
     The true motion departs from the kinematic bicycle model fed with the *true* steering
-    angle and CG speed (Rajamani 2012, CG reference, via ``kinematic_monitor.model``):
+    angle and CG speed (Rajamani 2012, CG reference, via ``kinematic_monitor.core.model``):
     beta_kin = atan(l_r tan(delta) / L), yaw_rate_kin = v cos(beta_kin) tan(delta) / L.
     A sample is slipping when |yaw_rate - yaw_rate_kin| > max(yaw_abs [0.03 rad/s],
     yaw_rel [0.15] * |yaw_rate_kin|) or |beta - beta_kin| > beta_abs [0.05 rad], at CG
@@ -35,7 +35,7 @@ from typing import Any
 
 import numpy as np
 
-from kinematic_monitor import model
+from kinematic_monitor.core import model
 from kinematic_monitor.sim.trace import WHEEL_NAMES, TrueTrace
 
 TRUTH_KINDS = (
