@@ -213,7 +213,7 @@ def run_case(case: Case, overrides: Mapping[str, Any] | None = None) -> CaseResu
     """Simulate, sense, inject faults, convert and run the monitor and the baseline."""
     import numpy as np
 
-    from kinematic_monitor.config.params import validate
+    from kinematic_monitor.config.validation import validate
     from kinematic_monitor.sim import faults, sensors, truth
 
     trace = case.make_trace(case.duration)

@@ -161,11 +161,11 @@ def core_cost(n_seconds: float = 20.0) -> tuple[float, float, float]:
     import numpy as np
     from filterpy.kalman import ExtendedKalmanFilter
 
-    from kinematic_monitor.config import params
+    from kinematic_monitor.config import validation
     from kinematic_monitor.core.monitor import Monitor
     from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 
-    cfg = params.validate({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
+    cfg = validation.validate({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
                            "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55,
                            "inputs.gnss.topic": ""})
     rng = random.Random(3)

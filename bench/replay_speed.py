@@ -62,7 +62,7 @@ def bare_read(bag: Path) -> tuple[float, float, int]:
 
 def our_reader(bag: Path, params: Path) -> tuple[float, float, int]:
     """kinematic_monitor.io.bag: read, decode the used fields, convert, order by stamp."""
-    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.config.files import load_config
     from kinematic_monitor.io.bag import open_bag
 
     cfg = load_config(params)
@@ -82,7 +82,7 @@ def decode_compare(bag: Path, params: Path, reps: int = 3) -> list[tuple[str, in
     """
     from rosbags.rosbag2 import Reader
 
-    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.config.files import load_config
     from kinematic_monitor.io import cdr, convert, fastpath
     from kinematic_monitor.io.bag import inputs_from_config
 
@@ -133,7 +133,7 @@ def decode_compare(bag: Path, params: Path, reps: int = 3) -> list[tuple[str, in
 
 def core_only(bag: Path, params: Path) -> tuple[float, float]:
     """Bag reader + Monitor.process on every sample, in-process, no outputs at all."""
-    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.config.files import load_config
     from kinematic_monitor.core.monitor import Monitor
     from kinematic_monitor.io.bag import open_bag
 

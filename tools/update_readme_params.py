@@ -6,7 +6,7 @@ import re
 import sys
 from pathlib import Path
 
-from kinematic_monitor.config.params import spec_table_markdown
+from kinematic_monitor.config.docs import spec_table_markdown
 
 BEGIN, END = "<!-- BEGIN PARAMETERS -->", "<!-- END PARAMETERS -->"
 

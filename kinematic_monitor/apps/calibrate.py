@@ -174,7 +174,7 @@ def result_json(result: Any) -> dict[str, Any]:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``calibrate``; returns the exit code (UsageError -> 2 via the CLI)."""
-    from kinematic_monitor.config import params
+    from kinematic_monitor.config import files, schema, validation
     from kinematic_monitor.core.calibration import estimate as cal
     from kinematic_monitor.io.bag import BagError
 
@@ -186,9 +186,9 @@ def run(args: argparse.Namespace) -> int:
     if not (math.isfinite(args.min_usable) and args.min_usable > 0):
         raise UsageError(f"--min-usable {args.min_usable!r} must be a positive number of s")
     try:
-        values = params.load_params_file(args.params)
-        config = params.validate(values)
-    except params.ParamError as exc:
+        values = files.load_params_file(args.params)
+        config = validation.validate(values)
+    except schema.ParamError as exc:
         raise UsageError(f"--params {args.params}: {exc}") from None
     for b in args.bags:
         if not Path(b).exists():
@@ -203,12 +203,12 @@ def run(args: argparse.Namespace) -> int:
     except cal.CalibrationError as exc:
         raise UsageError(str(exc)) from None
     updates = result.parameter_updates()
-    if "vehicle.understeer_gradient" not in params.SPEC_BY_NAME:
+    if "vehicle.understeer_gradient" not in schema.SPEC_BY_NAME:
         updates.pop("vehicle.understeer_gradient", None)
     new_values = {**values, **updates}
     try:
-        params.validate(new_values)
-    except params.ParamError as exc:
+        validation.validate(new_values)
+    except schema.ParamError as exc:
         raise UsageError(f"calibrated parameters are out of range, not written: {exc}") from None
     notes = comments(result, new_values)
     header = [
@@ -216,7 +216,7 @@ def run(args: argparse.Namespace) -> int:
         f"# input parameters: {args.params}; {result.usable_seconds:.0f} s usable of "
         f"{result.total_seconds:.0f} s; uncertainties are 1 sigma",
     ]
-    body = params.dumps_params_yaml(new_values, notes)
+    body = files.dumps_params_yaml(new_values, notes)
     out.write_text("\n".join(header) + "\n" + body, encoding="utf-8")
     text = report_text(result, list(args.bags))
     if args.report:

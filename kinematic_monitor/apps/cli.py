@@ -40,7 +40,9 @@ class UsageError(Exception):
 
 def load_config(path: str) -> Any:
     """The validated ``MonitorConfig`` of a ROS 2 parameter file; ``UsageError`` if bad."""
-    from kinematic_monitor.config.params import ParamError, load_params_file, validate
+    from kinematic_monitor.config.files import load_params_file
+    from kinematic_monitor.config.schema import ParamError
+    from kinematic_monitor.config.validation import validate
 
     if not os.path.isfile(path):
         raise UsageError(f"parameter file {path!r} does not exist or is not a file")

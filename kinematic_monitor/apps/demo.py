@@ -361,7 +361,7 @@ def run(args: argparse.Namespace) -> int:
 def run_live(out: Path, sim: Any, rate: float, domain: int | None,
              duration: float) -> list[dict[str, Any]] | None:
     """Node and player over DDS; returns the node's events (None if the node failed)."""
-    from kinematic_monitor.core.events import read_event_log
+    from kinematic_monitor.io.event_files import read_event_log
 
     domain = demo_domain_id() if domain is None else domain
     env = dds_env(domain)

@@ -453,8 +453,8 @@ def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False
 def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: bool,
          write_bag: bool, series_interval: float, progress: bool | None,
          read_ahead: bool = False) -> RunResult:
-    from kinematic_monitor.core.events import events_to_csv, events_to_json
     from kinematic_monitor.core.monitor import Monitor
+    from kinematic_monitor.io.event_files import events_to_csv, events_to_json
 
     result = RunResult(source=str(bag_path))
     show = progress_wanted() if progress is None else progress

@@ -268,7 +268,8 @@ def _copy_params(src: str, dest: Path) -> None:
 
 def _calibration(bag: str, out_dir: Path) -> dict[str, float] | None:
     """Calibrated ``vehicle.*`` values from a calibrate result beside the bag, or None."""
-    from kinematic_monitor.config.params import ParamError, load_params_file
+    from kinematic_monitor.config.files import load_params_file
+    from kinematic_monitor.config.schema import ParamError
 
     for place in (Path(bag) / CALIBRATION_FILE, out_dir / CALIBRATION_FILE):
         if place.is_file():

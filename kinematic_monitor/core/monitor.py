@@ -199,7 +199,7 @@ class Monitor:
 
     def __init__(self, config: Any) -> None:
         if isinstance(config, Mapping):
-            from kinematic_monitor.config.params import validate
+            from kinematic_monitor.config.validation import validate
 
             config = validate(config)
         self.config = config

@@ -123,7 +123,7 @@ def inputs_from_config(config: Any) -> BagInputs:
     the JointState steer joints, a speed input its wheel joints; with both, JointState is
     not read.
     """
-    from kinematic_monitor.config.params import SPEC_BY_NAME
+    from kinematic_monitor.config.schema import SPEC_BY_NAME
 
     base = BagInputs()
 

@@ -55,9 +55,9 @@ from rclpy.qos import (
 from rclpy.task import Future
 from sensor_msgs.msg import Imu, JointState, NavSatFix
 
-from kinematic_monitor.config import params
-from kinematic_monitor.core import events, ordering
-from kinematic_monitor.io import cdr, convert, fastpath
+from kinematic_monitor.config import schema, validation
+from kinematic_monitor.core import ordering
+from kinematic_monitor.io import cdr, convert, event_files, fastpath
 from kinematic_monitor.ros import messages as rm
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -111,16 +111,16 @@ _PARAM_TYPES = {
 }
 
 
-def param_specs() -> list[params.ParamSpec]:
-    """The parameter schema (``params.SPECS``)."""
-    return list(params.SPECS)
+def param_specs() -> list[schema.ParamSpec]:
+    """The parameter schema (``schema.SPECS``)."""
+    return list(schema.SPECS)
 
 
-def descriptor_for(spec: params.ParamSpec) -> ParameterDescriptor:
+def descriptor_for(spec: schema.ParamSpec) -> ParameterDescriptor:
     """ParameterDescriptor from a ParamSpec: type, description, numeric range, read_only.
 
     ROS ranges are closed intervals; an open bound such as (0, 20] is declared as [0, 20]
-    and the open end is enforced by ``params.validate``.
+    and the open end is enforced by ``validation.validate``.
     """
     d = ParameterDescriptor()
     d.name = spec.name
@@ -260,7 +260,7 @@ class KinematicMonitorNode(Node):
         raw = getattr(self, "_parameter_overrides", None) or {}
         return {name: p.value for name, p in raw.items()}
 
-    def _declare_and_validate(self) -> tuple[dict[str, Any], params.MonitorConfig]:
+    def _declare_and_validate(self) -> tuple[dict[str, Any], validation.MonitorConfig]:
         """Validate file values + defaults, then declare every parameter with them.
 
         Validation comes first so a bad value is reported in the schema's words (name,
@@ -272,7 +272,7 @@ class KinematicMonitorNode(Node):
             spec = self._specs.get(name)
             if spec is not None:
                 values[name] = _coerce(spec.type, value)
-            elif params.is_ros_reserved(name):
+            elif schema.is_ros_reserved(name):
                 continue
             else:
                 values[name] = value  # validate() names unknown parameters
@@ -288,10 +288,10 @@ class KinematicMonitorNode(Node):
                     f"{exc}") from exc
         return checked, config
 
-    def _validated(self, values: dict[str, Any]) -> params.MonitorConfig:
+    def _validated(self, values: dict[str, Any]) -> validation.MonitorConfig:
         try:
-            return params.validate(values)
-        except params.ParamError as exc:
+            return validation.validate(values)
+        except schema.ParamError as exc:
             raise StartupError(str(exc)) from exc
 
     def _on_set_parameters(self, changes: list[Parameter]) -> SetParametersResult:
@@ -311,8 +311,8 @@ class KinematicMonitorNode(Node):
                         reason=f"parameter {p.name} cannot change at run time (restart)")
                 merged[p.name] = _coerce(spec.type, p.value)
             try:
-                config = params.validate(merged)
-            except params.ParamError as exc:
+                config = validation.validate(merged)
+            except schema.ParamError as exc:
                 return SetParametersResult(successful=False, reason=str(exc))
             self._apply_config(config)
             self._values = merged
@@ -325,7 +325,7 @@ class KinematicMonitorNode(Node):
             self.counters["callback_errors"] += 1
             return SetParametersResult(successful=False, reason=f"internal error: {exc}")
 
-    def _apply_config(self, config: params.MonitorConfig) -> None:
+    def _apply_config(self, config: validation.MonitorConfig) -> None:
         """Hand new thresholds to the core.
 
         Uses ``Monitor.reconfigure(config)`` when the core offers it; otherwise open events
@@ -393,10 +393,10 @@ class KinematicMonitorNode(Node):
         # road-wheel angle
         self._max_steer = cfg.vehicle.max_road_wheel_angle
         path = cfg.output.events_log
-        self.event_log: events.EventLogWriter | None = None
+        self.event_log: event_files.EventLogWriter | None = None
         if path:
             try:
-                self.event_log = events.EventLogWriter(path)
+                self.event_log = event_files.EventLogWriter(path)
             except OSError as exc:
                 raise StartupError(
                     f"parameter 'output.events_log': cannot open {path!r}: {exc.strerror}"

@@ -386,7 +386,7 @@ def vehicle_params(vehicle: Any) -> dict[str, float]:
 
 def write_params_yaml(path: str | Path, vehicle: Any) -> None:
     """The node's parameter file with the simulated vehicle's true geometry."""
-    from kinematic_monitor.config.params import dump_params_yaml
+    from kinematic_monitor.config.files import dump_params_yaml
 
     dump_params_yaml(
         vehicle_params(vehicle),

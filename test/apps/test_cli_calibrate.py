@@ -20,7 +20,7 @@ import yaml
 
 from kinematic_monitor.apps import calibrate as calcmd
 from kinematic_monitor.apps.cli import UsageError
-from kinematic_monitor.config import params
+from kinematic_monitor.config import files
 
 
 def _run(argv: list[str]) -> int:
@@ -59,7 +59,7 @@ def test_five_minute_drive_recovers_offset_and_scale(gentle_bag: Path, tmp_path:
     rc = _run([str(gentle_bag), "--params", str(gentle_bag / "params.yaml"), "--out", str(out),
                "--report", str(rep)])
     assert rc == 0
-    cfg = params.load_config(out)  # the written file validates against the node's schema
+    cfg = files.load_config(out)  # the written file validates against the node's schema
     assert abs(math.degrees(cfg.vehicle.steering_offset) - (-1.0)) < 0.05
     assert abs(cfg.vehicle.wheel_speed_scale * 0.98 - 1.0) < 0.002
     text = out.read_text()
@@ -100,7 +100,7 @@ def test_existing_out_refused_and_bad_params_named(tmp_path: Path) -> None:
 
 def test_missing_bag_named(tmp_path: Path) -> None:
     p = tmp_path / "p.yaml"
-    params.dump_params_yaml({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
+    files.dump_params_yaml({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
                              "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55}, p)
     with pytest.raises(UsageError, match="nope"):
         _run([str(tmp_path / "nope"), "--params", str(p), "--out", str(tmp_path / "n.yaml")])

@@ -129,10 +129,10 @@ def test_fail_on_rule(levels: list[str], fail_on: str, met: bool) -> None:
 def test_replay_does_not_change_the_core_result(jump_bag: Path, tmp_path: Path) -> None:
     # DESIGN.md section 4: replay must give the events the core gives on the same samples
     # (reading statuses and predictions for the time series may not change decisions)
-    from kinematic_monitor.config.params import load_config
-    from kinematic_monitor.core.events import events_to_json
+    from kinematic_monitor.config.files import load_config
     from kinematic_monitor.core.monitor import Monitor
     from kinematic_monitor.io.bag import open_bag
+    from kinematic_monitor.io.event_files import events_to_json
 
     config = load_config(jump_bag / "params.yaml")
     mon = Monitor(config)
@@ -386,7 +386,7 @@ def test_timeseries_row_text_format(tmp_path: Path) -> None:
 def test_series_reader_gives_series_values_in_column_order(jump_bag: Path) -> None:
     # the row path after warm-up (Monitor.series_reader + TimeseriesWriter.add_row) must
     # see exactly what series_values gives, through a localisation jump and stale inputs
-    from kinematic_monitor.config.params import load_config
+    from kinematic_monitor.config.files import load_config
     from kinematic_monitor.core.monitor import Monitor
     from kinematic_monitor.io.bag import open_bag
 

@@ -28,7 +28,9 @@ from typing import Any
 import pytest
 
 from kinematic_monitor.apps import cli
-from kinematic_monitor.config.params import ParamError, load_params_file, validate
+from kinematic_monitor.config.files import load_params_file
+from kinematic_monitor.config.schema import ParamError
+from kinematic_monitor.config.validation import validate
 
 REPO = Path(__file__).resolve().parents[2]
 GEOM = "vehicle: {wheelbase: 2.7, cg_to_rear_axle: 1.35, wheel_radius: 0.31, track_width: 1.55}"

@@ -17,20 +17,16 @@ import yaml
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from kinematic_monitor.config import params as km_params
-from kinematic_monitor.config.params import (
-    SPEC_BY_NAME,
-    SPECS,
-    MonitorConfig,
-    ParamError,
-    check_value,
+from kinematic_monitor.config import docs, schema, validation
+from kinematic_monitor.config.docs import spec_table_markdown
+from kinematic_monitor.config.files import (
     dump_params_yaml,
     dumps_params_yaml,
     load_params_file,
     parse_params_text,
-    spec_table_markdown,
-    validate,
 )
+from kinematic_monitor.config.schema import SPEC_BY_NAME, SPECS, ParamError, check_value
+from kinematic_monitor.config.validation import MonitorConfig, validate
 
 REPO = Path(__file__).resolve().parents[2]
 CONFIG_FILES = [REPO / "config" / "kinematic_monitor.yaml",
@@ -87,7 +83,7 @@ def test_numeric_bounds_are_enforced_just_outside_the_range() -> None:
 
 
 def test_required_are_exactly_the_vehicle_geometry() -> None:
-    assert set(km_params.REQUIRED_NAMES) == set(GEOMETRY)
+    assert set(schema.REQUIRED_NAMES) == set(GEOMETRY)
 
 
 def test_every_spec_is_documented_with_a_unit() -> None:
@@ -100,9 +96,9 @@ def test_every_spec_is_documented_with_a_unit() -> None:
 
 def test_typed_groups_match_the_schema() -> None:
     # every typed attribute is a schema parameter (a spec may exist without one; get() serves)
-    assert set(km_params.group_field_names()) <= set(SPEC_BY_NAME)
+    assert set(validation.group_field_names()) <= set(SPEC_BY_NAME)
     cfg = validate(GEOMETRY)
-    for name in km_params.group_field_names():
+    for name in validation.group_field_names():
         obj: Any = cfg
         for part in name.split("."):
             obj = getattr(obj, part)
@@ -127,17 +123,17 @@ def test_spec_table_lists_every_parameter_once() -> None:
 
 
 def test_descriptor_fields() -> None:
-    wheelbase = km_params.descriptor_fields(SPEC_BY_NAME["vehicle.wheelbase"])
+    wheelbase = docs.descriptor_fields(SPEC_BY_NAME["vehicle.wheelbase"])
     assert wheelbase["type"] == "PARAMETER_DOUBLE" and wheelbase["range"] == (0.0, 20.0)
     assert "[m]" in wheelbase["description"] and "(0, 20]" in wheelbase["additional_constraints"]
     assert wheelbase["read_only"] is True
-    window = km_params.descriptor_fields(SPEC_BY_NAME["checks.nis_window"])
+    window = docs.descriptor_fields(SPEC_BY_NAME["checks.nis_window"])
     assert window["type"] == "PARAMETER_INTEGER" and window["read_only"] is False
-    joints = km_params.descriptor_fields(SPEC_BY_NAME["inputs.joint_states.steering_joints"])
+    joints = docs.descriptor_fields(SPEC_BY_NAME["inputs.joint_states.steering_joints"])
     assert joints["type"] == "PARAMETER_STRING_ARRAY" and joints["range"] is None
     # the type names are rcl_interfaces/msg/ParameterType constants
     msg = pytest.importorskip("rcl_interfaces.msg")
-    for name in km_params.ROS_TYPE_NAMES.values():
+    for name in docs.ROS_TYPE_NAMES.values():
         assert isinstance(getattr(msg.ParameterType, name), int), name
 
 
@@ -496,7 +492,7 @@ def test_unreadable_and_oversized_files(tmp_path: Path) -> None:
     with pytest.raises(ParamError, match="missing.yaml"):
         load_params_file(tmp_path / "missing.yaml")
     big = tmp_path / "big.yaml"
-    big.write_text("#" * (km_params.MAX_FILE_BYTES + 1))
+    big.write_text("#" * (schema.MAX_FILE_BYTES + 1))
     with pytest.raises(ParamError, match="big.yaml"):
         load_params_file(big)
     binary = tmp_path / "bin.yaml"

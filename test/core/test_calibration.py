@@ -17,7 +17,7 @@ import math
 import numpy as np
 import pytest
 
-from kinematic_monitor.config import params
+from kinematic_monitor.config import validation
 from kinematic_monitor.core.calibration import estimate as cal
 from kinematic_monitor.core.samples import ChassisSample, LocalizationSample
 
@@ -107,8 +107,8 @@ def make_drive(seed: int = 0, duration: float = 300.0, *, offset: float = 0.0,
     return out
 
 
-def config(**over: float) -> params.MonitorConfig:
-    return params.validate({**FILE, **over})
+def config(**over: float) -> validation.MonitorConfig:
+    return validation.validate({**FILE, **over})
 
 
 # --------------------------------------------------------------------------------------------
@@ -440,7 +440,7 @@ def test_parameter_updates_validate() -> None:
     drive = make_drive(12, 120.0, offset=-0.0175, scale=1.02)
     res = cal.calibrate(drive, config(), seed=12)
     values = {**FILE, **res.parameter_updates()}
-    cfg = params.validate(values)
+    cfg = validation.validate(values)
     assert cfg.vehicle.steering_offset == pytest.approx(-0.0175, abs=1e-3)
     assert cfg.vehicle.wheel_speed_scale == pytest.approx(1.02, abs=2e-3)
 
@@ -484,7 +484,7 @@ def test_understeer_gradient_from_simulated_ramp_steer() -> None:
             samples.append(s)
     samples.sort(key=lambda s: s.stamp)  # type: ignore[attr-defined]
     v = trace.vehicle
-    cfg = params.validate({"vehicle.wheelbase": v.wheelbase,
+    cfg = validation.validate({"vehicle.wheelbase": v.wheelbase,
                            "vehicle.cg_to_rear_axle": v.cg_to_rear_axle,
                            "vehicle.wheel_radius": v.wheel_radius,
                            "vehicle.track_width": v.track_width})

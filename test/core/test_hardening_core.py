@@ -31,7 +31,7 @@ import pytest
 
 pytest.importorskip("sensor_msgs")
 
-from kinematic_monitor.config import params  # noqa: E402
+from kinematic_monitor.config import validation  # noqa: E402
 from kinematic_monitor.core import ordering  # noqa: E402
 from kinematic_monitor.core.monitor import Monitor  # noqa: E402
 from kinematic_monitor.core.samples import (  # noqa: E402
@@ -55,7 +55,7 @@ class Pipe:
     """The node's data path without DDS (same converters, buffer settings and core)."""
 
     def __init__(self, **extra: Any) -> None:
-        cfg = params.validate({**GEOMETRY, "inputs.gnss.topic": "", **extra})
+        cfg = validation.validate({**GEOMETRY, "inputs.gnss.topic": "", **extra})
         self.cfg = cfg
         self.mon = Monitor(cfg)
         lag = cfg.inputs.reorder_window

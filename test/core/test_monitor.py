@@ -19,10 +19,10 @@ import pytest
 
 from kinematic_monitor.core import model
 from kinematic_monitor.core.checks.base import ERROR, OK, STALE, WARN
-from kinematic_monitor.core.events import events_to_json
 from kinematic_monitor.core.monitor import Monitor
 from kinematic_monitor.core.ordering import TimeReset
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
+from kinematic_monitor.io.event_files import events_to_json
 
 GEOMETRY = {
     "vehicle.wheelbase": 2.70,

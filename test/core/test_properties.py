@@ -25,7 +25,7 @@ import numpy as np
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from kinematic_monitor.config import params
+from kinematic_monitor.config import validation
 from kinematic_monitor.core import ordering
 from kinematic_monitor.core.monitor import Monitor
 from kinematic_monitor.core.samples import (
@@ -38,7 +38,7 @@ from kinematic_monitor.io import convert
 
 GEOMETRY = {"vehicle.wheelbase": 2.70, "vehicle.cg_to_rear_axle": 1.35,
             "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55}
-CFG = params.validate({**GEOMETRY, "inputs.gnss.topic": ""})
+CFG = validation.validate({**GEOMETRY, "inputs.gnss.topic": ""})
 T0 = 1_800_000_000.0
 SETTINGS = settings(max_examples=50, deadline=None,
                     suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

@@ -15,7 +15,7 @@ import math
 import pytest
 from rosbags.typesys import Stores, get_typestore
 
-from kinematic_monitor.config import params
+from kinematic_monitor.config import schema, validation
 from kinematic_monitor.core.samples import ChassisSample
 from kinematic_monitor.io import convert as cv
 from kinematic_monitor.io.bag import _typestore_fields
@@ -27,7 +27,7 @@ GEOMETRY = {"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
 
 
 def settings(**values: object) -> list[cv.ScalarSettings]:
-    cfg = params.validate({**GEOMETRY, **values})
+    cfg = validation.validate({**GEOMETRY, **values})
     return cv.scalar_settings(cfg.get)
 
 
@@ -130,8 +130,8 @@ def test_steering_and_speed_from_one_message_type() -> None:
     ({"inputs.steering.type": "int16"}, "inputs.steering.type"),
 ])
 def test_bad_settings_name_the_parameter(values: dict[str, object], name: str) -> None:
-    with pytest.raises(params.ParamError) as info:
-        params.validate({**GEOMETRY, **values})
+    with pytest.raises(schema.ParamError) as info:
+        validation.validate({**GEOMETRY, **values})
     assert info.value.name == name
 
 

@@ -18,7 +18,9 @@ from typing import Any
 
 import pytest
 
-from kinematic_monitor.config.params import NODE_NAME, load_params_file, validate
+from kinematic_monitor.config.files import load_params_file
+from kinematic_monitor.config.schema import NODE_NAME
+from kinematic_monitor.config.validation import validate
 
 REPO = Path(__file__).resolve().parents[2]
 LAUNCH_FILE = REPO / "launch" / "kinematic_monitor.launch.py"

@@ -49,7 +49,7 @@ def _simulate(out: Path) -> Any:
 
 
 def _events_from_log(path: Path) -> list[dict[str, Any]]:
-    from kinematic_monitor.core.events import read_event_log
+    from kinematic_monitor.io.event_files import read_event_log
 
     ends = [r for r in read_event_log(path) if r["type"] == "end"]
     return sorted(ends, key=lambda e: (e["kind"], e["start"]))

@@ -280,13 +280,13 @@ def test_event_status_levels_follow_rep107() -> None:
 
 
 def test_descriptors_carry_range_and_read_only() -> None:
-    from kinematic_monitor.config import params
+    from kinematic_monitor.config import schema
     from kinematic_monitor.ros import node
 
-    d = node.descriptor_for(params.SPEC_BY_NAME["vehicle.wheelbase"])
+    d = node.descriptor_for(schema.SPEC_BY_NAME["vehicle.wheelbase"])
     assert d.read_only and d.floating_point_range[0].to_value == 20.0
     assert "(0, 20]" in d.additional_constraints
-    n = node.descriptor_for(params.SPEC_BY_NAME["checks.nis_window"])
+    n = node.descriptor_for(schema.SPEC_BY_NAME["checks.nis_window"])
     assert not n.read_only and n.integer_range[0].from_value == 1
 
 

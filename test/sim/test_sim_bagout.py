@@ -12,7 +12,7 @@ from rosbags.rosbag2 import Reader
 from rosbags.typesys import Stores, get_typestore
 from test_sim_sensors import _Vehicle, circle_trace
 
-from kinematic_monitor.config.params import load_config
+from kinematic_monitor.config.files import load_config
 from kinematic_monitor.sim import faults as flt
 from kinematic_monitor.sim.bagout import (
     DEFAULT_TOPICS,

@@ -12,11 +12,9 @@ from pathlib import Path
 import pytest
 
 from kinematic_monitor.core.checks.base import ERROR, WARN
-from kinematic_monitor.core.events import (
-    SCHEMA,
-    Event,
+from kinematic_monitor.core.events import SCHEMA, Event, Transition
+from kinematic_monitor.io.event_files import (
     EventLogWriter,
-    Transition,
     events_to_csv,
     events_to_json,
     read_event_log,
