@@ -209,6 +209,12 @@ SPECS: tuple[ParamSpec, ...] = (
     _string("inputs.localization.reset_topic", "",
             "Topic on which the localisation declares relocalisations "
             "(any message = a deliberate jump); '' = none.", "optional_topic"),
+    _double("inputs.localization.reference_x", 0.0, "m",
+            "Where the localised point (the pose's child frame, base_link) sits along the body "
+            "x axis, measured forward from the centre of gravity: 0 when base_link is at the "
+            "centre of gravity, minus vehicle.cg_to_rear_axle when it is at the rear-axle centre "
+            "(the common convention for cars). Must lie within the vehicle's length, taken as "
+            "[-wheelbase, wheelbase] from the centre of gravity.", -20.0, 20.0),
     _string("inputs.imu.topic", "/imu/data", "sensor_msgs/Imu topic; '' disables the IMU.",
             "optional_topic"),
     _string("inputs.gnss.topic", "/gnss/fix",

@@ -56,6 +56,7 @@ class LocalizationInput:
     topic: str
     type: str
     reset_topic: str
+    reference_x: float
 
 
 @dataclass(frozen=True)
@@ -262,6 +263,12 @@ def _check_cross_fields(v: Mapping[str, Any]) -> None:
     if not v["vehicle.cg_to_rear_axle"] < wheelbase:
         raise ParamError("vehicle.cg_to_rear_axle", v["vehicle.cg_to_rear_axle"],
                          f"(0, vehicle.wheelbase) = (0, {wheelbase:g}) m")
+    ref_x = v["inputs.localization.reference_x"]
+    if not abs(ref_x) <= wheelbase:
+        raise ParamError("inputs.localization.reference_x", ref_x,
+                         f"[-vehicle.wheelbase, vehicle.wheelbase] = [{-wheelbase:g}, "
+                         f"{wheelbase:g}] m (a point on the vehicle; -vehicle.cg_to_rear_axle "
+                         "for a rear-axle base_link)")
     max_angle = v["vehicle.max_road_wheel_angle"]
     if not abs(v["vehicle.steering_offset"]) < max_angle:
         raise ParamError("vehicle.steering_offset", v["vehicle.steering_offset"],

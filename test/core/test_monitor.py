@@ -1,4 +1,4 @@
-"""Tests of the monitor core on hand-built sample sequences.
+"""Tests of the monitor core on hand-built sample sequences (test/fixtures/drives.py).
 
 The sequences are made with the kinematic bicycle equations (Rajamani 2012, CG reference:
 β = atan(l_r tan δ / L), ψ̇ = v cos β tan δ / L) and Ackermann geometry, with Gaussian
@@ -11,11 +11,10 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Callable
-from dataclasses import dataclass, field
 
 import numpy as np
 import pytest
+from fixtures.drives import Faults, config, drive, run, sine_steer
 
 from kinematic_monitor.core import model
 from kinematic_monitor.core.checks.base import ERROR, OK, STALE, WARN
@@ -24,165 +23,7 @@ from kinematic_monitor.core.ordering import TimeReset
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 from kinematic_monitor.io.event_files import events_to_json
 
-GEOMETRY = {
-    "vehicle.wheelbase": 2.70,
-    "vehicle.cg_to_rear_axle": 1.35,
-    "vehicle.wheel_radius": 0.31,
-    "vehicle.track_width": 1.55,
-}
-NOISE = {  # the configured noise = the noise put into the data
-    "steer": 0.002,  # rad
-    "wheel": 0.1,  # rad/s
-    "imu": 0.005,  # rad/s
-    "accel": 0.1,  # m/s²
-    "pos": 0.05,  # m
-    "yaw": 0.01,  # rad
-    "vel": 0.05,  # m/s
-}
 
-
-def config(**extra: object) -> dict[str, object]:
-    cfg: dict[str, object] = dict(GEOMETRY)
-    cfg.update({
-        "noise.steering_angle_std": NOISE["steer"],
-        "noise.wheel_speed_std": NOISE["wheel"],
-        "noise.imu_yaw_rate_std": NOISE["imu"],
-        "noise.imu_accel_std": NOISE["accel"],
-        "noise.localization_position_std": NOISE["pos"],
-        "noise.localization_yaw_std": NOISE["yaw"],
-        "noise.localization_velocity_std": NOISE["vel"],
-    })
-    cfg.update(extra)
-    return cfg
-
-
-@dataclass
-class Faults:
-    """Injected faults; intervals are [start, end) in seconds from t0."""
-
-    yaw_factor: Callable[[float], float] = lambda t: 1.0  # true ψ̇ / kinematic ψ̇
-    steer_offset: float = 0.0  # true δ − measured δ [rad]
-    loc_jump: tuple[float, float, float] | None = None  # (t, dx, dy)
-    loc_jump_declared: bool = False  # covariance collapses at the jump
-    rear_spin: tuple[float, float, float] | None = None  # (start, end, slip ratio)
-    silent_imu: tuple[float, float] | None = None
-    loc_heading_drift: tuple[float, float] | None = None  # (start, rad/s) on the pose yaw
-    wheel_scale: float = 1.0  # reported wheel speeds / true wheel speeds
-
-
-@dataclass
-class Drive:
-    samples: list[object] = field(default_factory=list)
-    t0: float = 1000.0
-
-
-def drive(
-    duration: float,
-    speed: Callable[[float], float],
-    steer: Callable[[float], float],
-    faults: Faults | None = None,
-    seed: int = 1,
-    t0: float = 1000.0,
-    chassis_hz: float = 100.0,
-    imu_hz: float = 100.0,
-    loc_hz: float = 50.0,
-) -> list[object]:
-    """Samples (sorted by stamp) of a kinematic drive with noise and injected faults."""
-    f = faults or Faults()
-    p = model.VehicleParams(2.70, 1.35, 0.31, 1.55)
-    rng = np.random.default_rng(seed)
-    dt = 1.0 / 1000.0
-    n = int(round(duration / dt))
-    x = y = yaw = 0.0
-    out: list[tuple[float, int, object]] = []
-    every_c = int(round(1000 / chassis_hz))
-    every_i = int(round(1000 / imu_hz))
-    every_l = int(round(1000 / loc_hz))
-    jump_dx = jump_dy = 0.0
-    seq = 0
-    for i in range(n + 1):
-        t = i * dt
-        v = speed(t)
-        d_true = steer(t)
-        kin_rate = model.yaw_rate(v, d_true, p)
-        factor = f.yaw_factor(t)
-        rate = factor * kin_rate
-        # the true motion: a bicycle with the effective angle giving that yaw rate
-        d_eff = math.atan(factor * math.tan(d_true))
-        beta = model.sideslip(d_eff, p)
-        stamp = t0 + t
-        if i % every_c == 0:
-            d_meas = d_true - f.steer_offset
-            dl, dr = model.bicycle_to_ackermann(d_meas, p)
-            v_r = v * math.cos(beta)
-            w = 0.5 * p.track_width
-            r = p.wheel_radius / f.wheel_scale
-            k = w * math.tan(d_eff) / p.wheelbase
-            dl_e, dr_e = model.bicycle_to_ackermann(d_eff, p)
-            spin = 0.0
-            if f.rear_spin and f.rear_spin[0] <= t < f.rear_spin[1]:
-                spin = f.rear_spin[2]
-            sample = ChassisSample(
-                stamp=stamp,
-                steer_left=dl + rng.normal(0, NOISE["steer"]),
-                steer_right=dr + rng.normal(0, NOISE["steer"]),
-                wheel_front_left=v_r * (1 - k) / math.cos(dl_e) / r
-                + rng.normal(0, NOISE["wheel"]),
-                wheel_front_right=v_r * (1 + k) / math.cos(dr_e) / r
-                + rng.normal(0, NOISE["wheel"]),
-                wheel_rear_left=(v_r - w * rate) / r * (1 + spin) + rng.normal(0, NOISE["wheel"]),
-                wheel_rear_right=(v_r + w * rate) / r * (1 + spin)
-                + rng.normal(0, NOISE["wheel"]),
-            )
-            out.append((stamp, seq, sample))
-            seq += 1
-        silent = f.silent_imu is not None and f.silent_imu[0] <= t < f.silent_imu[1]
-        if i % every_i == 0 and not silent:
-            out.append((stamp, seq, ImuSample(
-                stamp=stamp, yaw_rate=rate + rng.normal(0, NOISE["imu"]),
-                ax=rng.normal(0, NOISE["accel"]), ay=v * rate + rng.normal(0, NOISE["accel"]))))
-            seq += 1
-        if i % every_l == 0:
-            if f.loc_jump and t >= f.loc_jump[0]:
-                jump_dx, jump_dy = f.loc_jump[1], f.loc_jump[2]
-            var = NOISE["pos"] ** 2
-            if f.loc_jump and f.loc_jump_declared and t < f.loc_jump[0]:
-                var = 0.5**2  # before the relocalisation the localisation is unsure
-            pos_sd = math.sqrt(var)
-            lrate = rate
-            dyaw = 0.0
-            if f.loc_heading_drift and t >= f.loc_heading_drift[0]:
-                dyaw = f.loc_heading_drift[1] * (t - f.loc_heading_drift[0])
-                lrate += f.loc_heading_drift[1]
-            out.append((stamp, seq, LocalizationSample(
-                stamp=stamp,
-                x=x + jump_dx + rng.normal(0, pos_sd),
-                y=y + jump_dy + rng.normal(0, pos_sd),
-                yaw=yaw + dyaw + rng.normal(0, NOISE["yaw"]),
-                vx=v * math.cos(beta) + rng.normal(0, NOISE["vel"]),
-                vy=v * math.sin(beta) + rng.normal(0, NOISE["vel"]),
-                yaw_rate=lrate + rng.normal(0, NOISE["imu"]),
-                pose_cov=(var, 0, 0, 0, var, 0, 0, 0, NOISE["yaw"] ** 2),
-            )))
-            seq += 1
-        # integrate the truth (exact arc with the effective angle)
-        x, y, yaw = model.step(x, y, yaw, v, d_eff, dt, p)
-    out.sort(key=lambda e: (e[0], e[1]))
-    return [s for _, _, s in out]
-
-
-def run(samples: list[object], cfg: dict[str, object] | None = None) -> Monitor:
-    m = Monitor(cfg or config())
-    for s in samples:
-        m.process(s)
-    return m
-
-
-def sine_steer(amp: float, period: float) -> Callable[[float], float]:
-    return lambda t: amp * math.sin(2 * math.pi * t / period)
-
-
-# ----------------------------------------------------------------------------- clean data
 @pytest.fixture(scope="module")
 def clean_drive() -> list[object]:
     # 90 s at 12 m/s, steering ±0.045 rad: |a_y| up to v² tan δ / L ≈ 2.4 m/s² ≈ 0.25 g,

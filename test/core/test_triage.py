@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-from test_monitor import Faults, config, drive, run, sine_steer
+from fixtures.drives import Faults, config, drive, run, sine_steer
 
 from kinematic_monitor.core import model
 from kinematic_monitor.core.checks.base import ERROR, GRAVITY

@@ -7,116 +7,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from fixtures.bags import STORAGES, T0, TS, T, header, imu, joint_state, odometry, write_bag
 from rosbags.rosbag2 import StoragePlugin, Writer
 from rosbags.typesys import Stores, get_typestore
 
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 from kinematic_monitor.io.bag import BagError, open_bag
-
-TS = get_typestore(Stores.ROS2_HUMBLE)
-T = TS.types
-JOINTS = [
-    "front_left_steer_joint",
-    "front_right_steer_joint",
-    "front_left_wheel_joint",
-    "front_right_wheel_joint",
-    "rear_left_wheel_joint",
-    "rear_right_wheel_joint",
-]
-T0 = 1_800_000_000  # header stamps [s]
-
-
-def _hdr(t: float, frame: str = "base_link") -> object:
-    sec = int(t)
-    return T["std_msgs/msg/Header"](
-        stamp=T["builtin_interfaces/msg/Time"](sec=sec, nanosec=round((t - sec) * 1e9)),
-        frame_id=frame,
-    )
-
-
-def joint_state(t: float, steer: float = 0.05, wheel: float = 30.0) -> bytes:
-    msg = T["sensor_msgs/msg/JointState"](
-        header=_hdr(t),
-        name=JOINTS,
-        position=np.array([steer, steer * 0.9, 0, 0, 0, 0], dtype=np.float64),
-        velocity=np.array([0, 0, wheel, wheel, wheel, wheel], dtype=np.float64),
-        effort=np.array([], dtype=np.float64),
-    )
-    return bytes(TS.serialize_cdr(msg, "sensor_msgs/msg/JointState"))
-
-
-def odometry(t: float, x: float) -> bytes:
-    Vec = T["geometry_msgs/msg/Vector3"]
-    msg = T["nav_msgs/msg/Odometry"](
-        header=_hdr(t, "map"),
-        child_frame_id="base_link",
-        pose=T["geometry_msgs/msg/PoseWithCovariance"](
-            pose=T["geometry_msgs/msg/Pose"](
-                position=T["geometry_msgs/msg/Point"](x=x, y=0.0, z=0.0),
-                orientation=T["geometry_msgs/msg/Quaternion"](x=0.0, y=0.0, z=0.0, w=1.0),
-            ),
-            covariance=np.eye(6).ravel() * 0.01,
-        ),
-        twist=T["geometry_msgs/msg/TwistWithCovariance"](
-            twist=T["geometry_msgs/msg/Twist"](linear=Vec(9.3, 0.0, 0.0), angular=Vec(0, 0, 0)),
-            covariance=np.eye(6).ravel() * 0.01,
-        ),
-    )
-    return bytes(TS.serialize_cdr(msg, "nav_msgs/msg/Odometry"))
-
-
-def imu(t: float) -> bytes:
-    Vec = T["geometry_msgs/msg/Vector3"]
-    msg = T["sensor_msgs/msg/Imu"](
-        header=_hdr(t, "imu_link"),
-        orientation=T["geometry_msgs/msg/Quaternion"](x=0.0, y=0.0, z=0.0, w=1.0),
-        orientation_covariance=np.zeros(9),
-        angular_velocity=Vec(0.0, 0.0, 0.02),
-        angular_velocity_covariance=np.zeros(9),
-        linear_acceleration=Vec(0.1, 0.0, 9.81),
-        linear_acceleration_covariance=np.zeros(9),
-    )
-    return bytes(TS.serialize_cdr(msg, "sensor_msgs/msg/Imu"))
-
-
-def write_bag(
-    path: Path,
-    storage: StoragePlugin,
-    seconds: float = 3.0,
-    odom_lag: float = 0.03,
-    extra: list[tuple[str, str, float, bytes]] | None = None,
-    odom_type: str = "nav_msgs/msg/Odometry",
-) -> Path:
-    """JointState 100 Hz, Imu 100 Hz, Odometry 50 Hz logged ``odom_lag`` s after its stamp."""
-    records: list[tuple[float, str, bytes]] = []
-    n = int(seconds * 100)
-    for i in range(n):
-        t = T0 + i * 0.01
-        records.append((t, "/joint_states", joint_state(t)))
-        records.append((t + 0.001, "/imu/data", imu(t)))
-        if i % 2 == 0:
-            records.append((t + odom_lag, "/localization/odom", odometry(t, 0.093 * i)))
-    for topic, _type, log_t, data in extra or []:
-        records.append((log_t, topic, data))
-    records.sort(key=lambda r: r[0])
-    types = {
-        "/joint_states": "sensor_msgs/msg/JointState",
-        "/imu/data": "sensor_msgs/msg/Imu",
-        "/localization/odom": odom_type,
-    }
-    for topic, msgtype, _, _ in extra or []:
-        types[topic] = msgtype
-    with Writer(path, version=9, storage_plugin=storage) as w:
-        conns = {
-            topic: w.add_connection(topic, msgtype, typestore=TS)
-            for topic, msgtype in types.items()
-        }
-        for log_t, topic, data in records:
-            w.write(conns[topic], int(round(log_t * 1e9)), data)
-    return path
-
-
-STORAGES = [StoragePlugin.SQLITE3, StoragePlugin.MCAP]
 
 
 @pytest.mark.parametrize("storage", STORAGES)
@@ -214,7 +110,7 @@ def test_missing_or_mistyped_topics(tmp_path: Path) -> None:
 def test_pose_with_covariance_input(tmp_path: Path) -> None:
     bag = tmp_path / "b"
     pose = T["geometry_msgs/msg/PoseWithCovarianceStamped"](
-        header=_hdr(T0 + 0.05, "map"),
+        header=header(T0 + 0.05, "map"),
         pose=T["geometry_msgs/msg/PoseWithCovariance"](
             pose=T["geometry_msgs/msg/Pose"](
                 position=T["geometry_msgs/msg/Point"](x=1.0, y=2.0, z=0.0),
@@ -288,7 +184,7 @@ def _scalar_bag(path: Path, storage: StoragePlugin = StoragePlugin.SQLITE3,
         t = T0 + i * 0.02
         if custom:
             msg = ts.types["proving_msgs/msg/SteerReport"](
-                header=_hdr(t), road_wheel_angle_deg=2.0 + 0.01 * i,
+                header=header(t), road_wheel_angle_deg=2.0 + 0.01 * i,
                 spare=np.zeros(2, dtype=np.float64))
             data = ts.serialize_cdr(msg, "proving_msgs/msg/SteerReport")
         else:
@@ -296,7 +192,7 @@ def _scalar_bag(path: Path, storage: StoragePlugin = StoragePlugin.SQLITE3,
                                     "std_msgs/msg/Float64")
         records.append((t + 0.005, "/steering", bytes(data)))
         tw = ts.types["geometry_msgs/msg/TwistStamped"](
-            header=_hdr(t + 0.01), twist=ts.types["geometry_msgs/msg/Twist"](
+            header=header(t + 0.01), twist=ts.types["geometry_msgs/msg/Twist"](
                 linear=Vec(36.0, 0.0, 0.0), angular=Vec(0.0, 0.0, 0.0)))
         records.append((t + 0.012, "/speed", bytes(ts.serialize_cdr(
             tw, "geometry_msgs/msg/TwistStamped"))))

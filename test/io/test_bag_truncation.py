@@ -22,8 +22,8 @@ import pytest
 
 pytest.importorskip("rosbags")
 
+from fixtures.bags import write_bag  # noqa: E402
 from rosbags.rosbag2 import StoragePlugin  # noqa: E402
-from test_bag import write_bag  # noqa: E402
 
 from kinematic_monitor.apps import cli  # noqa: E402
 

@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 import pytest
 import transforms3d
+from fixtures.traces import circle_trace
 
 from kinematic_monitor.sim import faults as flt
 from kinematic_monitor.sim.sensors import (
@@ -27,68 +27,6 @@ from kinematic_monitor.sim.sensors import (
     sample_truth,
 )
 from kinematic_monitor.sim.trace import TrueTrace
-
-
-@dataclass
-class _Vehicle:
-    """Invented test vehicle (geometry of the DESIGN.md section 2 example)."""
-
-    wheelbase: float = 2.70
-    cg_to_rear_axle: float = 1.35
-    wheel_radius: float = 0.31
-    track_width: float = 1.55
-
-
-def circle_trace(v: float = 10.0, delta: float = 0.1, duration: float = 4.0) -> TrueTrace:
-    """Steady kinematic circle (Rajamani 2012 kinematic bicycle model, CG reference).
-
-    beta = atan(l_r tan(delta)/L), yaw_rate = v cos(beta) tan(delta)/L; road-wheel angles
-    from Ackermann geometry about the rear-axle centre: tan(delta_l,r) = L/(R_r -+ w/2).
-    ``delta = 0`` gives a straight line.
-    """
-    veh = _Vehicle()
-    L, lr, w = veh.wheelbase, veh.cg_to_rear_axle, veh.track_width
-    dt = 0.002
-    t = np.arange(int(round(duration / dt)) + 1) * dt
-    n = t.shape[0]
-    beta = math.atan(lr * math.tan(delta) / L)
-    yaw_rate = v * math.cos(beta) * math.tan(delta) / L
-    yaw = yaw_rate * t
-    course = yaw + beta
-    if delta != 0.0:
-        r_cg = v / yaw_rate
-        x = r_cg * (np.sin(course) - math.sin(beta))
-        y = r_cg * (math.cos(beta) - np.cos(course))
-        r_rear = L / math.tan(delta)
-        d_l = math.atan(L / (r_rear - 0.5 * w))
-        d_r = math.atan(L / (r_rear + 0.5 * w))
-        a_c = v * yaw_rate  # centripetal acceleration v^2/R, towards the centre
-    else:
-        x, y = v * t, np.zeros(n)
-        d_l = d_r = 0.0
-        a_c = 0.0
-    full = np.full
-    trace = TrueTrace(
-        dt=dt,
-        t=t,
-        x=x,
-        y=y,
-        yaw=yaw,
-        vx=full(n, v * math.cos(beta)),
-        vy=full(n, v * math.sin(beta)),
-        yaw_rate=full(n, yaw_rate),
-        ax=full(n, -a_c * math.sin(beta)),
-        ay=full(n, a_c * math.cos(beta)),
-        steer_left=full(n, d_l),
-        steer_right=full(n, d_r),
-        steer=full(n, delta),
-        wheel_omega=np.zeros((n, 4)),
-        mu=full(n, 1.0),
-        vehicle=veh,  # type: ignore[arg-type]
-        scenario="test_circle",
-    )
-    trace.wheel_omega = trace.wheel_speed_over_ground() / veh.wheel_radius
-    return trace
 
 
 def quiet_config(**gnss: float) -> SensorConfig:
