@@ -62,7 +62,6 @@ class SeedResult:
 def simulated_samples(seed: int, duration: float) -> tuple[list[Any], dict[str, float]]:
     """Samples of one simulated gentle drive with both faults, and its parameter mapping."""
     from grading import samples_from_records
-
     from kinematic_monitor.sim import sensors
     from kinematic_monitor.sim.bagout import vehicle_params
     from kinematic_monitor.sim.faults import SteeringOffset, WheelRadiusError, apply_faults

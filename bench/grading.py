@@ -227,7 +227,7 @@ def run_case(case: Case, overrides: Mapping[str, Any] | None = None) -> CaseResu
     truths = to_truth(truth.truth_intervals(trace) + injected, epoch)
     cfg = monitor_config(trace.vehicle, overrides)
     events = run_monitor(samples, cfg)
-    base = YawRateBaseline(validate(cfg).vehicle_params()).run(samples)
+    base = YawRateBaseline(validate(cfg).vehicle).run(samples)
     return CaseResult(case, truths, events, base, trace.duration / 3600.0,
                       float(np.max(np.abs(trace.ay))) / 9.80665, rejected)
 

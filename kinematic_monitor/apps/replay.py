@@ -19,7 +19,7 @@ from collections import Counter
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from kinematic_monitor.apps.cli import (
     EXIT_FAIL_ON,
@@ -31,6 +31,11 @@ from kinematic_monitor.apps.cli import (
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 from kinematic_monitor.io.outputs import OutputDir, OutputDirError
 from kinematic_monitor.io.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter
+
+if TYPE_CHECKING:  # pragma: no cover - typing only (the core is imported when it runs)
+    from kinematic_monitor.core.checks.base import CheckStatus
+    from kinematic_monitor.core.monitor import Monitor
+    from kinematic_monitor.core.prediction import Prediction
 
 HELP = "Run the monitor over a recorded rosbag2 folder and write events, time series and report."
 
@@ -96,24 +101,6 @@ def _bicycle_steer(s: ChassisSample) -> float:
 _NAN4 = (math.nan, math.nan, math.nan, math.nan)
 
 
-def _prediction_fields(pred: Any) -> tuple[float, float, float, float]:
-    """(x, y, yaw, speed) from the monitor's prediction object or mapping (NaN if absent)."""
-    if pred is None:
-        return (math.nan,) * 4  # type: ignore[return-value]
-
-    def get(*names: str) -> float:
-        for n in names:
-            v = pred.get(n) if isinstance(pred, Mapping) else getattr(pred, n, None)
-            if v is not None:
-                try:
-                    return float(v)
-                except (TypeError, ValueError):
-                    continue
-        return math.nan
-
-    return get("x"), get("y"), get("yaw"), get("v", "speed")
-
-
 @dataclass
 class RunResult:
     """What a replay produced (for the summary line and the exit code)."""
@@ -176,11 +163,10 @@ class _Recorder:
     stream straight to the file.
     """
 
-    def __init__(self, monitor: Any, fh: Any, interval: float, warmup: float = 30.0,
+    def __init__(self, monitor: Monitor, fh: Any, interval: float, warmup: float = 30.0,
                  keep_rows: bool = False) -> None:
         self.monitor = monitor
         self._process = monitor.process
-        self._estimate = getattr(monitor, "estimate", None)
         self.fh = fh
         self.interval = interval
         self.warmup = warmup
@@ -191,21 +177,19 @@ class _Recorder:
         self.last = math.nan
         self.steer = math.nan
         self.accel = math.nan
-        self.loc: tuple[float, float, float, float] = (math.nan,) * 4  # type: ignore[assignment]
+        self.loc: tuple[float, float, float, float] = _NAN4
         # latest chassis / localisation sample not yet turned into steer / loc (at a row)
-        self._steer_from: Any = None
-        self._loc_from: Any = None
+        self._steer_from: ChassisSample | None = None
+        self._loc_from: LocalizationSample | None = None
         self.samples = 0
-        self.transitions: list[Any] = []
+        self.transitions: list[tuple[str, dict[str, Any], int]] = []
         self.keep_rows = keep_rows
         # (stamp, statuses or None, prediction) for --write-bag
-        self.kept: list[tuple[float, list[Any] | None, Any]] = []
+        self.kept: list[tuple[float, list[CheckStatus] | None, Prediction | None]] = []
         self._kept_levels: tuple[int, ...] | None = None
         self._kept_at = -math.inf
-        self.last_statuses: list[Any] = []
+        self.last_statuses: list[CheckStatus] = []
         self.channels: list[str] = []
-        # the monitor's series_reader for the writer's columns, once they are known
-        self._read: Callable[[], tuple[list[float], list[int]]] | None = None
 
     def feed(self, sample: Any) -> None:
         stamp = sample.stamp
@@ -250,27 +234,16 @@ class _Recorder:
             speed = _hypot(loc.vx, loc.vy) if _isfinite(loc.vy) else abs(loc.vx)
             self.loc = (loc.x, loc.y, loc.yaw, speed)
             self._loc_from = None
-        statuses: list[Any] = []
+        statuses: list[CheckStatus] = []
         if self.keep_rows or final:
-            statuses = list(mon.statuses())
+            statuses = mon.statuses()
             self.last_statuses = statuses
         for tr in mon.pop_transitions():  # snapshot: the monitor keeps updating its events
             self.transitions.append((tr.type, tr.event.to_dict(), int(tr.event.level)))
-        est = self._estimate
-        if est is not None and not self.keep_rows:
-            # the prediction's pose and speed only (no covariance): the same floats
-            try:
-                fields = est()
-            except Exception:  # noqa: BLE001 - no estimate yet is not an error
-                fields = None
-            x, y, yaw, v = fields if fields is not None else _NAN4
-            pred = None
-        else:
-            try:
-                pred = mon.prediction()
-            except Exception:  # noqa: BLE001 - no estimate yet is not an error
-                pred = None
-            x, y, yaw, v = _prediction_fields(pred)
+        pred = mon.prediction() if self.keep_rows else None
+        est = (pred.x, pred.y, pred.yaw, pred.v) if pred is not None else (
+            None if self.keep_rows else mon.estimate())
+        x, y, yaw, v = est if est is not None else _NAN4
         if self.keep_rows:
             # statuses at 1 Hz and on a level change (what /diagnostics needs), the
             # prediction at every row
@@ -285,15 +258,9 @@ class _Recorder:
             x, y, yaw = self.loc[0], self.loc[1], self.loc[2]
         if not math.isfinite(v):
             v = self.loc[3]
-        if self._read is not None and self.writer is not None:
-            # the columns are known: figures as lists in column order (same values)
-            res, lev = self._read()
-            self.writer.add_row(stamp, (x, y, yaw, v, self.steer, self.accel), res, lev)
-            self.accel = math.nan
-            return
         levels, residuals = mon.series_values()
         row: dict[str, Any] = {"x": x, "y": y, "yaw": yaw, "speed": v, "steering": self.steer,
-               "accel": self.accel, "residuals": residuals, "levels": levels}
+                               "accel": self.accel, "residuals": residuals, "levels": levels}
         self.accel = math.nan
         if self.writer is not None:
             self.writer.add(stamp, **row)
@@ -314,9 +281,6 @@ class _Recorder:
         for stamp, row in self.pending:
             self.writer.add(stamp, **row)
         self.pending = []
-        reader = getattr(self.monitor, "series_reader", None)
-        if callable(reader):
-            self._read = reader(self.writer.channels, self.writer.checks)
 
     def close(self) -> None:
         """Write what is still buffered."""

@@ -20,25 +20,12 @@ from kinematic_monitor.config.schema import (
     check_value,
     is_ros_reserved,
 )
+from kinematic_monitor.core.model import VehicleParams
 
 
 # ---------------------------------------------------------------------------------------------
 # The typed configuration
 # ---------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class VehicleConfig:
-    """Vehicle geometry [m] and calibration (``vehicle.*``)."""
-
-    wheelbase: float
-    cg_to_rear_axle: float
-    wheel_radius: float
-    track_width: float
-    steering_offset: float
-    wheel_speed_scale: float
-    max_road_wheel_angle: float
-    steering_ratio: float
-
-
 @dataclass(frozen=True)
 class JointStatesInput:
     """``inputs.joint_states.*``: topic and (left, right) joint names."""
@@ -72,6 +59,31 @@ class TopicInput:
 
 
 @dataclass(frozen=True)
+class SteeringInput:
+    """``inputs.steering.*``: a single-value steering angle replacing the steer joints."""
+
+    topic: str
+    type: str
+    type_name: str
+    field: str
+    scale: float
+    offset: float
+    kind: str
+
+
+@dataclass(frozen=True)
+class SpeedInput:
+    """``inputs.speed.*``: a single vehicle speed replacing the wheel joints."""
+
+    topic: str
+    type: str
+    type_name: str
+    field: str
+    scale: float
+    offset: float
+
+
+@dataclass(frozen=True)
 class InputsConfig:
     """``inputs.*``."""
 
@@ -83,6 +95,8 @@ class InputsConfig:
     reorder_window: float
     batch_size: int
     batch_delay: float
+    steering: SteeringInput
+    speed: SpeedInput
 
 
 @dataclass(frozen=True)
@@ -112,6 +126,9 @@ class ChecksConfig:
     friction_assumed: float
     slip_ratio_warn: float
     slip_ratio_error: float
+    yaw_lag: float
+    heading_time_constant: float
+    heading_tolerance: float
 
 
 @dataclass(frozen=True)
@@ -141,7 +158,7 @@ class MonitorConfig:
     holds ROS-reserved parameters that were given (e.g. ``use_sim_time``).
     """
 
-    vehicle: VehicleConfig
+    vehicle: VehicleParams
     inputs: InputsConfig
     noise: NoiseConfig
     checks: ChecksConfig
@@ -160,21 +177,6 @@ class MonitorConfig:
     def as_dict(self) -> dict[str, Any]:
         """All schema parameters by dotted name, arrays as lists (ready for YAML/JSON)."""
         return {k: list(v) if isinstance(v, tuple) else v for k, v in self.values.items()}
-
-    def vehicle_params(self) -> Any:
-        """The vehicle as ``kinematic_monitor.core.model.VehicleParams``."""
-        from kinematic_monitor.core.model import VehicleParams  # imported late: optional module
-
-        v = self.vehicle
-        return VehicleParams(
-            wheelbase=v.wheelbase,
-            cg_to_rear_axle=v.cg_to_rear_axle,
-            wheel_radius=v.wheel_radius,
-            track_width=v.track_width,
-            steering_offset=v.steering_offset,
-            wheel_speed_scale=v.wheel_speed_scale,
-            max_road_wheel_angle=v.max_road_wheel_angle,
-        )
 
 
 _T = TypeVar("_T")

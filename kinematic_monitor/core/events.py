@@ -29,7 +29,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from kinematic_monitor.core.checks.base import ERROR, LEVEL_NAMES, WARN
+from kinematic_monitor.core.levels import ERROR, LEVEL_NAMES, WARN
 
 SCHEMA = "kinematic_monitor.events/1"
 KINDS = ("lateral_slip", "longitudinal_slip", "localization_fault", "calibration_bias",

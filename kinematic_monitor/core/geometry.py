@@ -42,3 +42,16 @@ def rotate_to_body(dx: float, dy: float, yaw: float) -> tuple[float, float]:
     """
     c, s = math.cos(yaw), math.sin(yaw)
     return (c * dx + s * dy, -s * dx + c * dy)
+
+
+def pose_error(
+    predicted: tuple[float, float, float], measured: tuple[float, float, float]
+) -> tuple[float, float, float]:
+    """Error of a measured pose against a predicted one, (x, y, yaw) each [m, m, rad].
+
+    Returns (longitudinal [m], lateral [m], heading [rad]) of measured − predicted, in the
+    predicted pose's body axes (x forward, y left).
+    """
+    lon, lat = rotate_to_body(measured[0] - predicted[0], measured[1] - predicted[1],
+                              predicted[2])
+    return lon, lat, angle_diff(measured[2], predicted[2])

@@ -30,6 +30,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+#: standard acceleration of gravity [m/s²] (CGPM 1901 conventional value, ISO 80000-3)
+GRAVITY = 9.80665
 _HALF_PI = 0.5 * math.pi
 # below this half-angle [rad] the sinc series is used (truncation error < 1e-21)
 _SERIES_LIMIT = 1e-2
@@ -47,6 +49,10 @@ class VehicleParams:
         ``delta_true = delta_measured + steering_offset`` [rad]; |offset| < max_road_wheel_angle.
     wheel_speed_scale: multiplies wheel_radius (effective radius = radius * scale) [-], > 0.
     max_road_wheel_angle: largest plausible bicycle road-wheel angle [rad], in (0, pi/2).
+    understeer_gradient: steady-state understeer gradient K [rad/(m/s²)] (SAE J670 / ISO 8855
+        sign, positive for understeer); the kinematic prediction uses delta - K * a_y.
+    steering_ratio: steering-wheel angle per road-wheel angle [-], > 0 (1: the steering
+        input reports road-wheel angles; the converters divide by it).
     """
 
     wheelbase: float
@@ -56,6 +62,8 @@ class VehicleParams:
     steering_offset: float = 0.0
     wheel_speed_scale: float = 1.0
     max_road_wheel_angle: float = 0.7
+    understeer_gradient: float = 0.0
+    steering_ratio: float = 1.0
 
     def __post_init__(self) -> None:
         def bad(name: str, allowed: str) -> ValueError:
@@ -71,6 +79,8 @@ class VehicleParams:
             "steering_offset",
             "wheel_speed_scale",
             "max_road_wheel_angle",
+            "understeer_gradient",
+            "steering_ratio",
         ):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int | float):
@@ -87,6 +97,8 @@ class VehicleParams:
             raise bad("track_width", "> 0 m")
         if self.wheel_speed_scale <= 0.0:
             raise bad("wheel_speed_scale", "> 0")
+        if self.steering_ratio <= 0.0:
+            raise bad("steering_ratio", "> 0")
         if not 0.0 < self.max_road_wheel_angle < _HALF_PI:
             raise bad("max_road_wheel_angle", "in (0, pi/2) rad")
         if abs(self.steering_offset) >= self.max_road_wheel_angle:
@@ -139,6 +151,16 @@ def yaw_rate(v: float, delta: float, p: VehicleParams) -> float:
 def lateral_acceleration(v: float, delta: float, p: VehicleParams) -> float:
     """Steady-state lateral acceleration v * psi_dot [m/s^2] (body y, left positive)."""
     return v * v * curvature(delta, p)
+
+
+#: the kinematic model is consistent while |a_y| <= 0.5·μ·g (Polack et al., IEEE IV 2017;
+#: the factor from memory)
+KINEMATIC_ENVELOPE = 0.5
+
+
+def kinematic_envelope(friction: float) -> float:
+    """Largest |a_y| [m/s²] for which the kinematic model is consistent: 0.5·μ·g."""
+    return KINEMATIC_ENVELOPE * friction * GRAVITY
 
 
 # --- exact discrete step ---------------------------------------------------------------

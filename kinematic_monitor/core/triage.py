@@ -27,7 +27,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from kinematic_monitor.core.checks.base import GRAVITY, kinematic_envelope
+from kinematic_monitor.core.model import GRAVITY, kinematic_envelope
 
 
 @dataclass

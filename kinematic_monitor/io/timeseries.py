@@ -122,41 +122,6 @@ class TimeseriesWriter:
                 if level > lev[k]:
                     lev[k] = int(level)
 
-    def add_row(self, time: float, base: Sequence[float], residuals: Sequence[float],
-                levels: Sequence[int]) -> None:
-        """:meth:`add` with the values as lists in column order: ``base`` = (x, y, yaw,
-        speed, steering, accel), ``residuals`` one per channel and ``levels`` one per check
-        (same lengths as given to the constructor; NaN = no value)."""
-        if not math.isfinite(time):
-            self.ignored += 1
-            return
-        if self._open and time - self._window_start >= self.min_interval - 1e-6:
-            self._flush_row()
-        isfinite = math.isfinite
-        b = self._base
-        b[0] = time
-        for i in range(5):
-            v = base[i]
-            if isfinite(v):
-                b[i + 1] = v
-        accel = base[5]
-        if isfinite(accel) and not (abs(accel) <= abs(self._accel)):
-            self._accel = accel
-        if not self._open:  # a new window: every residual slot is NaN
-            self._open = True
-            self._window_start = time
-            self._res = [v if isfinite(v) else math.nan for v in residuals]
-            self._lev = [int(v) if v > 0 else 0 for v in levels]
-            return
-        res = self._res
-        for j, v in enumerate(residuals):
-            if isfinite(v) and not (abs(v) <= abs(res[j])):
-                res[j] = v
-        lev = self._lev
-        for k, v in enumerate(levels):
-            if v > lev[k]:
-                lev[k] = int(v)
-
     def _flush_row(self) -> None:
         b = self._base
         b[6] = self._accel

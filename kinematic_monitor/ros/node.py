@@ -240,7 +240,6 @@ class KinematicMonitorNode(Node):
         self._latency: deque[float] = deque(maxlen=_LATENCY_WINDOW)
         self._last_levels: tuple[Any, ...] | None = None
         self._level_signature: tuple[Any, ...] | None = None
-        self._level_reader: tuple[Any, Callable[[], tuple[list[float], list[int]]]] | None = None
         self._last_level_check = 0.0
         self._last_prediction_stamp = -math.inf
         self._last_stamp = math.nan
@@ -326,20 +325,13 @@ class KinematicMonitorNode(Node):
             return SetParametersResult(successful=False, reason=f"internal error: {exc}")
 
     def _apply_config(self, config: validation.MonitorConfig) -> None:
-        """Hand new thresholds to the core.
-
-        Uses ``Monitor.reconfigure(config)`` when the core offers it; otherwise open events
-        are closed at the last stamp and the monitor restarts with the new configuration
-        (its filter re-initialises from the next samples).
-        """
+        """Hand new thresholds to the core: open events are closed at the last stamp and
+        the monitor restarts with the new configuration (its filter re-initialises from the
+        next samples)."""
         self._flush_batch()  # samples before the change meet the thresholds they came with
         to = config.timeouts
         self.buffer.stream_timeouts.update(
             joint_states=to.joint_states, localization=to.localization, imu=to.imu)
-        fn = getattr(self.monitor, "reconfigure", None)
-        if callable(fn):
-            fn(config)
-            return
         from kinematic_monitor.core.monitor import Monitor
 
         if math.isfinite(self._last_stamp):
@@ -618,9 +610,7 @@ class KinematicMonitorNode(Node):
     def _on_reset(self, msg: Any) -> None:
         self._flush_batch()  # what came before the declaration is processed before it
         stamp = rm.stamp_to_sec(msg.header.stamp)
-        fn = getattr(self.monitor, "declare_relocalization", None)
-        if callable(fn):
-            fn(stamp)
+        self.monitor.declare_relocalization(stamp)
         self.counters["localization_resets"] += 1
         return None
 
@@ -689,9 +679,7 @@ class KinematicMonitorNode(Node):
             "released_by_lag": self.buffer.released_by_lag,
             "time_resets": self.buffer.resets,
         }
-        mon_counters = getattr(self.monitor, "counters", None)
-        if isinstance(mon_counters, dict):
-            values.update({f"core.{k}": v for k, v in sorted(mon_counters.items())})
+        values.update({f"core.{k}": v for k, v in sorted(self.monitor.counters.items())})
         values.update(sorted(self.counters.items()))
         errors = self.counters.get("callback_errors", 0)
         return NodeStatus("kinematic_monitor: node", 1 if errors else 0,
@@ -705,17 +693,10 @@ class KinematicMonitorNode(Node):
         self._level_signature = self._levels()
         self.pub_diag.publish(rm.diagnostic_array(sts, self.get_clock().now().to_msg()))
 
-    def _levels(self) -> tuple[Any, ...]:
-        # the monitor's levels as numbers: far cheaper than building every status's text,
-        # and this runs at up to 1 / _LEVEL_CHECK_PERIOD Hz
-        mon = self.monitor
-        reader = getattr(mon, "series_reader", None)
-        if not callable(reader):
-            return tuple(mon.series_values()[0].items())
-        if self._level_reader is None or self._level_reader[0] is not mon:
-            # the checks' levels only, in a fixed order (rebuilt for a new monitor)
-            self._level_reader = (mon, reader((), list(mon.series_values()[0])))
-        return tuple(self._level_reader[1]()[1])
+    def _levels(self) -> tuple[tuple[str, int], ...]:
+        """The monitor's levels as numbers: far cheaper than building every status's text,
+        and this runs at up to 1 / _LEVEL_CHECK_PERIOD Hz."""
+        return tuple(self.monitor.levels())
 
     def _maybe_publish_on_level_change(self) -> None:
         if self._levels() != self._level_signature:

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import math
 
-import grading as de
 import numpy as np
 import pytest
 
+import grading as de
 from kinematic_monitor.core import model
 from kinematic_monitor.core.events import Event
 from kinematic_monitor.core.samples import ChassisSample, ImuSample

@@ -9,8 +9,9 @@ bench/detection.py, not asserted here (no timed unit tests).
 
 from __future__ import annotations
 
-import grading as de
 import pytest
+
+import grading as de
 
 
 @pytest.fixture(scope="module")

@@ -116,8 +116,9 @@ HOSTILE_FILES = [
 
 
 def _bag(tmp: Path) -> Path:
-    from fixtures.bags import write_bag
     from rosbags.rosbag2 import StoragePlugin
+
+    from fixtures.bags import write_bag
 
     return write_bag(tmp / "bag", StoragePlugin.SQLITE3, seconds=1.0)
 

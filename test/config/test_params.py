@@ -361,7 +361,7 @@ def test_not_a_mapping_refused() -> None:
 
 def test_vehicle_params_from_model() -> None:
     model = pytest.importorskip("kinematic_monitor.core.model")
-    vp = validate(_with(vehicle__steering_offset=0.01)).vehicle_params()
+    vp = validate(_with(vehicle__steering_offset=0.01)).vehicle
     assert isinstance(vp, model.VehicleParams)
     assert (vp.wheelbase, vp.cg_to_rear_axle, vp.steering_offset) == (2.7, 1.35, 0.01)
 
@@ -385,7 +385,7 @@ def test_what_validate_accepts_the_model_accepts(wheelbase: float, lr: float, ra
         cfg = validate(values)
     except ParamError:
         return
-    assert isinstance(cfg.vehicle_params(), model.VehicleParams)
+    assert isinstance(cfg.vehicle, model.VehicleParams)
 
 
 _hostile = st.recursive(

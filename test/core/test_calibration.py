@@ -348,7 +348,6 @@ def _as_steering_wheel(records: list[object], ratio: float) -> list[object]:
 
 def _samples(records: list[object], scfg: object, ratio: float) -> list[object]:
     from grading import sample_from_record
-
     from kinematic_monitor.io import convert
 
     js = scfg.joint_states  # type: ignore[attr-defined]
@@ -364,7 +363,6 @@ def test_joint_state_steering_wheel_angles_match_road_wheel_run() -> None:
     # ratio 15 with steering-wheel joints must give the monitor exactly what ratio 1 with
     # road-wheel joints gives: same events, same predictions (the core never divides)
     from grading import monitor_config
-
     from kinematic_monitor.core.monitor import Monitor
     from kinematic_monitor.sim.faults import SteeringOffset
 

@@ -139,7 +139,7 @@ def run(pipe: Pipe, msgs: Iterator[tuple[str, Any]]) -> None:
 
 def assert_filter_healthy(pipe: Pipe) -> None:
     """No NaN reached the filter: state finite, P symmetric positive definite."""
-    ekf = pipe.mon._ekf  # the core's filter (private: the invariant is about its state)
+    ekf = pipe.mon.filter.ekf  # the core's filter (the invariant is about its state)
     assert pipe.callback_errors == 0
     assert pipe.mon.counters["internal_errors"] == 0, pipe.mon.notes[-3:]
     if ekf is None:

@@ -14,10 +14,10 @@ import math
 
 import numpy as np
 import pytest
-from fixtures.drives import Faults, config, drive, run, sine_steer
 
+from fixtures.drives import Faults, config, drive, run, sine_steer
 from kinematic_monitor.core import model
-from kinematic_monitor.core.checks.base import ERROR, OK, STALE, WARN
+from kinematic_monitor.core.levels import ERROR, OK, STALE, WARN
 from kinematic_monitor.core.monitor import Monitor
 from kinematic_monitor.core.ordering import TimeReset
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample

@@ -84,7 +84,7 @@ def sample_sequences(draw: Any, max_size: int = 60) -> list[Any]:
 
 def _healthy(mon: Monitor) -> None:
     assert mon.counters["internal_errors"] == 0, mon.notes[-3:]
-    ekf = mon._ekf  # the core's filter
+    ekf = mon.filter.ekf  # the core's filter
     if ekf is None:
         return
     x = np.asarray(ekf.state, dtype=float)

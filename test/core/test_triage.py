@@ -10,9 +10,9 @@ from __future__ import annotations
 import math
 
 from fixtures.drives import Faults, config, drive, run, sine_steer
-
 from kinematic_monitor.core import model
-from kinematic_monitor.core.checks.base import ERROR, GRAVITY
+from kinematic_monitor.core.levels import ERROR
+from kinematic_monitor.core.model import GRAVITY
 from kinematic_monitor.core.monitor import Monitor
 from kinematic_monitor.core.triage import Evidence, classify
 

@@ -7,10 +7,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from fixtures.bags import STORAGES, T0, TS, T, header, imu, joint_state, odometry, write_bag
 from rosbags.rosbag2 import StoragePlugin, Writer
 from rosbags.typesys import Stores, get_typestore
 
+from fixtures.bags import STORAGES, T0, TS, T, header, imu, joint_state, odometry, write_bag
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 from kinematic_monitor.io.bag import BagError, open_bag
 

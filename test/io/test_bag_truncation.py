@@ -22,9 +22,9 @@ import pytest
 
 pytest.importorskip("rosbags")
 
-from fixtures.bags import write_bag  # noqa: E402
 from rosbags.rosbag2 import StoragePlugin  # noqa: E402
 
+from fixtures.bags import write_bag  # noqa: E402
 from kinematic_monitor.apps import cli  # noqa: E402
 
 PARAMS = """\

@@ -11,8 +11,8 @@ from pathlib import Path
 
 import pytest
 
-from kinematic_monitor.core.checks.base import ERROR, WARN
 from kinematic_monitor.core.events import SCHEMA, Event, Transition
+from kinematic_monitor.core.levels import ERROR, WARN
 from kinematic_monitor.io.event_files import (
     EventLogWriter,
     events_to_csv,

@@ -8,9 +8,9 @@ import os
 from pathlib import Path
 
 import pytest
-from fixtures.bags import STORAGES, T0, write_bag
 from rosbags.rosbag2 import StoragePlugin
 
+from fixtures.bags import STORAGES, T0, write_bag
 from kinematic_monitor.core.samples import ChassisSample, GnssSample, ImuSample, LocalizationSample
 from kinematic_monitor.io import readahead
 from kinematic_monitor.io.bag import BagError, open_bag

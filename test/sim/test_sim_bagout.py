@@ -8,10 +8,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from fixtures.traces import _Vehicle, circle_trace
 from rosbags.rosbag2 import Reader
 from rosbags.typesys import Stores, get_typestore
 
+from fixtures.traces import _Vehicle, circle_trace
 from kinematic_monitor.config.files import load_config
 from kinematic_monitor.sim import faults as flt
 from kinematic_monitor.sim.bagout import (

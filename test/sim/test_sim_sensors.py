@@ -7,8 +7,8 @@ import math
 import numpy as np
 import pytest
 import transforms3d
-from fixtures.traces import circle_trace
 
+from fixtures.traces import circle_trace
 from kinematic_monitor.sim import faults as flt
 from kinematic_monitor.sim.sensors import (
     DEFAULT_EPOCH_NS,

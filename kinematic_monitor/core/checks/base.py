@@ -1,36 +1,39 @@
-"""Residual channels and check levels with hysteresis (pure, no ROS).
+"""What every check is made of: a level with hysteresis, its statistical test, block means.
 
-Residuals (REP 103: SI units, radians, body x forward / y left, CCW positive):
+A check (one module each in this package) is one object that owns its residual, its
+statistical test, its level, its status (name, message, key-values with units), its
+time-series figures and its peak figures. The monitor (``core/monitor.py``) hands it the
+samples it asked for and takes decisions on a fixed grid of header-stamp time; a check that
+finds a deviation reports it to the event book (``core/episodes.py``), which triages it into
+an event.
 
-* yaw-rate residual [rad/s]: measured yaw rate (IMU, else localisation twist) minus the
-  kinematic yaw rate ψ̇ = v·cos β·tan δ / L (Rajamani 2012);
-* sideslip residual [rad]: measured body sideslip atan2(vy, vx) minus kinematic β;
-* open-loop drift [m, rad]: kinematic dead reckoning anchored to a localisation pose,
-  compared with localisation after a horizon, in the anchor's body axes;
-* longitudinal slip ratio [-]: κ = (Ω·R_e − V_x) / V_x (ISO 8855 / Pacejka sign, positive
-  when driving), denominator guarded at low speed;
-* grip in use [-]: |a_y| / g, a lower bound on the friction coefficient in use, compared
-  with the kinematic-consistency envelope 0.5·μ·g (Polack et al., IEEE IV 2017; the 0.5
-  factor from memory).
-
-Levels are REP 107 ints: OK=0, WARN=1, ERROR=2, STALE=3.
+Levels are REP 107 ints (``core/levels.py``). Units SI, angles in radians (REP 103).
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, ClassVar, Protocol
 
-from kinematic_monitor.core.geometry import angle_diff, rotate_to_body
-from kinematic_monitor.core.stats import Cusum
+from kinematic_monitor.core.levels import ERROR, LEVEL_NAMES, OK, WARN
+from kinematic_monitor.core.stats import Cusum, arl_for_rate, cusum_threshold
 
-OK = 0
-WARN = 1
-ERROR = 2
-STALE = 3
-LEVEL_NAMES = {OK: "OK", WARN: "WARN", ERROR: "ERROR", STALE: "STALE"}
-GRAVITY = 9.80665  # m/s², standard gravity
-KINEMATIC_ENVELOPE = 0.5  # |a_y| <= 0.5·μ·g (Polack et al. 2017, factor from memory)
+if TYPE_CHECKING:  # pragma: no cover - typing only
+    from kinematic_monitor.core.triage import Evidence
+
+PREFIX = "kinematic_monitor: "
+#: the smallest persistent shift [σ of the standardised residual] every CUSUM is tuned to
+#: find quickly: reference value k = MIN_SHIFT / 2 (Page 1954; common practice, no source
+#: for the value 1 σ)
+MIN_SHIFT = 1.0
+#: relative error allowed to the kinematic model's prediction [-] before a residual counts
+#: (common practice, no source)
+MODEL_TOLERANCE = 0.05
+#: absolute yaw-rate error allowed to the kinematic prediction [rad/s] (common practice,
+#: no source)
+YAW_RATE_TOLERANCE = 0.01
 
 
 @dataclass
@@ -46,82 +49,15 @@ class CheckStatus:
     values: dict[str, str] = field(default_factory=dict)
 
 
-def kinematic_yaw_rate(v: float, delta: float, wheelbase: float, l_r: float) -> float:
-    """ψ̇ = v·cos β·tan δ / L [rad/s] at the centre of gravity (Rajamani 2012)."""
-    beta = math.atan(l_r * math.tan(delta) / wheelbase)
-    return v * math.cos(beta) * math.tan(delta) / wheelbase
+class EventSink(Protocol):
+    """Where a check reports its transitions (the monitor's event book)."""
 
+    def handle(self, channel: str, out: str | None, t: float,
+               extra: dict[str, float] | None = None) -> None:
+        """A transition ('start', 'raise', 'end' or None) of ``channel`` at ``t`` [s]."""
 
-def kinematic_sideslip(delta: float, wheelbase: float, l_r: float) -> float:
-    """β = atan(l_r·tan δ / L) [rad] (Rajamani 2012)."""
-    return math.atan(l_r * math.tan(delta) / wheelbase)
-
-
-def measured_sideslip(vx: float, vy: float) -> float:
-    """Body sideslip atan2(vy, vx) [rad] from body-frame velocity [m/s]."""
-    return math.atan2(vy, vx)
-
-
-def slip_ratio(wheel_speed: float, ground_speed: float, min_speed: float) -> float:
-    """Longitudinal slip ratio κ = (Ω·R_e − V_x) / max(|V_x|, min_speed) [-].
-
-    ``wheel_speed`` = Ω·R_e [m/s], ``ground_speed`` = V_x [m/s] along the wheel heading.
-    ISO 8855 / Pacejka sign convention: positive when driving (spin), −1 for a locked
-    wheel at speed. The guard ``min_speed`` [m/s] keeps the ratio finite at standstill.
-    """
-    if not min_speed > 0.0:
-        raise ValueError(f"min_speed must be positive, got {min_speed}")
-    return (wheel_speed - ground_speed) / max(abs(ground_speed), min_speed)
-
-
-def grip_in_use(lateral_accel: float) -> float:
-    """|a_y| / g [-]: a lower bound on the friction coefficient being used."""
-    return abs(lateral_accel) / GRAVITY
-
-
-def kinematic_envelope(friction: float) -> float:
-    """Largest |a_y| [m/s²] for which the kinematic model is consistent: 0.5·μ·g."""
-    return KINEMATIC_ENVELOPE * friction * GRAVITY
-
-
-def drift_error(
-    predicted: tuple[float, float, float], measured: tuple[float, float, float]
-) -> tuple[float, float, float]:
-    """Error of a localisation pose vs a dead-reckoned pose (x, y, yaw) [m, m, rad].
-
-    Returns (longitudinal [m], lateral [m], heading [rad]) of measured − predicted, in the
-    predicted pose's body axes (x forward, y left).
-    """
-    dx = measured[0] - predicted[0]
-    dy = measured[1] - predicted[1]
-    lon, lat = rotate_to_body(dx, dy, predicted[2])
-    return lon, lat, angle_diff(measured[2], predicted[2])
-
-
-def yaw_rate_sigma(
-    v: float,
-    delta: float,
-    wheelbase: float,
-    meas_std: float,
-    steer_std: float,
-    speed_std: float,
-    kin_rate: float,
-    rel_std: float,
-) -> float:
-    """Standard deviation [rad/s] of one yaw-rate residual sample (first-order propagation).
-
-    σ² = σ_meas² + (v/(L·cos²δ))²·σ_δ² + (ψ̇/v)²·σ_v² + (rel·ψ̇)²; the last term allows for
-    model error of the kinematic prediction (``rel_std``, common practice, no source).
-    """
-    c = math.cos(delta)
-    d_delta = abs(v) / (wheelbase * c * c)
-    d_v = abs(kin_rate) / max(abs(v), 0.1)
-    return math.sqrt(
-        meas_std**2
-        + (d_delta * steer_std) ** 2
-        + (d_v * speed_std) ** 2
-        + (rel_std * kin_rate) ** 2
-    )
+    def close(self, channel: str, end: float) -> None:
+        """``channel`` stopped holding its event open at ``end`` [s]."""
 
 
 class LevelTracker:
@@ -136,6 +72,10 @@ class LevelTracker:
     def __init__(self, min_duration: float, clear_duration: float) -> None:
         self.min_duration = min_duration
         self.clear_duration = clear_duration
+        self.reset()
+
+    def reset(self) -> None:
+        """Back to OK without reporting an end."""
         self.level = OK
         self.max_level = OK
         self.start = math.nan
@@ -143,10 +83,6 @@ class LevelTracker:
         self.detected_at = math.nan
         self._above_since: dict[int, float] = {}
         self._below_since = math.nan
-
-    def reset(self) -> None:
-        """Back to OK without reporting an end."""
-        self.__init__(self.min_duration, self.clear_duration)  # type: ignore[misc]
 
     def update(
         self, candidate: int, stamp: float, onset: float = math.nan, end_hint: float = math.nan
@@ -197,22 +133,26 @@ class LevelTracker:
         return None
 
 
-class CusumCheck:
+def cusum_thresholds(false_alarm_rate: float, error_rate: float,
+                     decisions_per_second: float) -> tuple[float, float, float]:
+    """(k, h_warn, h_error) [σ] of a two-sided CUSUM taking ``decisions_per_second``
+    standardised values: k = MIN_SHIFT / 2 and thresholds whose in-control run lengths give
+    ``false_alarm_rate`` and ``error_rate`` alarms per hour [1/h] (``stats.cusum_threshold``)."""
+    k = 0.5 * MIN_SHIFT
+    return (k, cusum_threshold(k, arl_for_rate(false_alarm_rate, decisions_per_second)),
+            cusum_threshold(k, arl_for_rate(error_rate, decisions_per_second)))
+
+
+class CusumTest:
     """A two-sided CUSUM on a standardised residual with WARN/ERROR thresholds and hysteresis.
 
-    ``h_warn``/``h_error`` [σ] come from false-alarm rates (see stats.cusum_threshold).
+    ``h_warn``/``h_error`` [σ] come from false-alarm rates (:func:`cusum_thresholds`).
     The statistic is capped at ``h_error`` so it falls back within about
     h_error/k decisions once the residual returns to zero mean.
     """
 
-    def __init__(
-        self,
-        k: float,
-        h_warn: float,
-        h_error: float,
-        min_duration: float,
-        clear_duration: float,
-    ) -> None:
+    def __init__(self, k: float, h_warn: float, h_error: float, min_duration: float,
+                 clear_duration: float) -> None:
         self.k = k
         self.h_warn = h_warn
         self.h_error = max(h_error, h_warn)
@@ -255,13 +195,17 @@ class CusumCheck:
         onset = res.onset - span if math.isfinite(res.onset) else res.onset
         return self.tracker.update(candidate, stamp, onset, self._last_excess)
 
+    def figures(self) -> list[tuple[str, float]]:
+        """The statistic and its thresholds, for statuses and the time series [σ]."""
+        return [("cusum [sigma]", self.statistic), ("cusum_warn [sigma]", self.h_warn),
+                ("cusum_error [sigma]", self.h_error)]
 
-class ThresholdCheck:
+
+class ThresholdTest:
     """A magnitude against WARN/ERROR thresholds (same unit), with hysteresis."""
 
-    def __init__(
-        self, warn: float, error: float, min_duration: float, clear_duration: float
-    ) -> None:
+    def __init__(self, warn: float, error: float, min_duration: float,
+                 clear_duration: float) -> None:
         self.warn = warn
         self.error = max(error, warn)
         self.tracker = LevelTracker(min_duration, clear_duration)
@@ -273,13 +217,6 @@ class ThresholdCheck:
     def level(self) -> int:
         """Current level (OK/WARN/ERROR)."""
         return self.tracker.level
-
-    def reset(self) -> None:
-        """Forget the history."""
-        self.tracker.reset()
-        self.value = math.nan
-        self._onset = math.nan
-        self._last_above = math.nan
 
     def update(self, value: float, stamp: float, span: float = 0.0) -> str | None:
         """Feed a magnitude at ``stamp`` [s]; non-finite values count as OK.
@@ -300,3 +237,155 @@ class ThresholdCheck:
         if out == "end":
             self._onset = math.nan
         return out
+
+
+def mean_excess_z(mean: float, allowance: float, noise_var: float, n_eff: int
+                  ) -> tuple[float, float]:
+    """(mean, z): the part of |mean| beyond the model allowance, in σ of the block mean.
+
+    The allowance is a dead band for the kinematic model's own error (deterministic, so
+    it does not average out); the noise variance of one sample shrinks with ``n_eff``.
+    """
+    excess = math.copysign(max(0.0, abs(mean) - allowance), mean)
+    sd = math.sqrt(noise_var / n_eff)
+    return mean, excess / sd if sd > 0.0 else math.nan
+
+
+class BlockMean:
+    """Residual samples of one decision period: sums of residual, noise variance and model
+    allowance, and whether every sample was taken while the check was meaningful."""
+
+    __slots__ = ("n", "s", "noise_var", "allowance", "all_active")
+
+    def __init__(self) -> None:
+        self.clear()
+
+    def clear(self) -> None:
+        """Empty the block (at each decision)."""
+        self.n = 0
+        self.s = 0.0
+        self.noise_var = 0.0
+        self.allowance = 0.0
+        self.all_active = True
+
+    def add(self, r: float, noise_var: float, allowance: float, active: bool) -> None:
+        """One residual ``r``, the variance of its noise and its model allowance."""
+        self.n += 1
+        self.s += r
+        self.noise_var += noise_var
+        self.allowance += allowance
+        self.all_active = self.all_active and active
+
+    def z(self, n_eff_cap: int) -> tuple[float, float]:
+        """(mean residual, standardised excess over the allowance) of the block."""
+        if self.n == 0:
+            return math.nan, math.nan
+        return mean_excess_z(self.s / self.n, self.allowance / self.n,
+                             self.noise_var / self.n, max(1, min(self.n, n_eff_cap)))
+
+
+class Check:
+    """Base of every check.
+
+    ``name``: the check's id and its triage channel ('yaw_rate'); ``label``: its status
+    name after ``kinematic_monitor: `` and, with underscores, its time-series name;
+    ``needs``: the inputs it needs (a stale one makes its status STALE); ``figures``: its
+    current key-values (unit in the key). Subclasses give ``level`` and, when they can
+    open events, ``tracker``.
+    """
+
+    name: ClassVar[str] = ""
+    label: ClassVar[str] = ""
+    #: peak figures (:meth:`peaks`) are kept for events of these kinds
+    peak_kinds: ClassVar[tuple[str, ...]] = ()
+    #: ... and only while the check itself holds the event open
+    peaks_own_events_only: ClassVar[bool] = False
+
+    def __init__(self, needs: Iterable[str] = ()) -> None:
+        self.needs = frozenset(needs)
+        self.figures: dict[str, float] = {}
+
+    @property
+    def level(self) -> int:
+        """Current level (REP 107 OK/WARN/ERROR) before the stale-input rule."""
+        raise NotImplementedError
+
+    @property
+    def tracker(self) -> LevelTracker:
+        """The level tracker whose start/end times an event takes."""
+        raise NotImplementedError(f"check {self.name!r} opens no events")
+
+    def status_figures(self) -> dict[str, float]:
+        """Key-values for ``/diagnostics`` and the time series (figures, then the test's)."""
+        return dict(self.figures)
+
+    def status_message(self, level: int, active: bool, summary: str | None,
+                       inactive: str) -> str:
+        """The status message at ``level``: the open event's summary, the level's name, or
+        why the check is not meaningful now (``inactive``, e.g. below checks.min_speed)."""
+        if level:
+            return summary if summary else LEVEL_NAMES[level].lower()
+        return "ok" if active else inactive
+
+    def peaks(self, kind: str) -> list[tuple[str, float]]:
+        """(name, value) figures an open event of ``kind`` keeps the largest of."""
+        return []
+
+    def evidence(self, ev: Evidence) -> None:
+        """Add what this check knows to the evidence of an alarm on its own channel."""
+
+
+class CusumCheck(Check):
+    """A check whose test is a :class:`CusumTest` on standardised residuals."""
+
+    def __init__(self, test: CusumTest, book: EventSink, needs: Iterable[str] = ()) -> None:
+        super().__init__(needs)
+        self.test = test
+        self.book = book
+
+    @property
+    def level(self) -> int:
+        """Current level (OK/WARN/ERROR)."""
+        return self.test.tracker.level
+
+    @property
+    def tracker(self) -> LevelTracker:
+        """The CUSUM's level tracker."""
+        return self.test.tracker
+
+    def status_figures(self) -> dict[str, float]:
+        """Figures, then the CUSUM statistic and its thresholds [σ]."""
+        figs = dict(self.figures)
+        figs.update(self.test.figures())
+        return figs
+
+    def deactivate(self, t: float) -> None:
+        """Not meaningful now (e.g. standstill): close its event at ``t`` [s] and forget."""
+        if self.test.level:
+            self.book.close(self.name, t)
+        self.test.reset(t)
+
+
+class BlockCheck(CusumCheck):
+    """A CUSUM check on block means of residual samples, one block per decision period."""
+
+    #: unit of the residual, used in the figure name ``block_mean_residual [unit]``
+    unit: ClassVar[str] = "-"
+
+    def __init__(self, test: CusumTest, book: EventSink, period: float,
+                 needs: Iterable[str] = ()) -> None:
+        super().__init__(test, book, needs)
+        self.period = period
+        self.block = BlockMean()
+
+    def decide(self, t: float, n_eff_cap: int, active: bool) -> None:
+        """Decision at grid time ``t`` [s] on the block of [t − period, t)."""
+        block = self.block
+        mean, z = block.z(n_eff_cap)
+        if block.n and block.all_active and active and math.isfinite(z):
+            self.figures.update({f"block_mean_residual [{self.unit}]": mean,
+                                 "excess [sigma]": z})
+            self.book.handle(self.name, self.test.update(z, t, span=self.period), t)
+        elif not active or (block.n and not block.all_active):
+            self.deactivate(t)
+        block.clear()
