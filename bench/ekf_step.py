@@ -1,8 +1,7 @@
 """Per-step cost of BicycleEKF beside filterpy's ExtendedKalmanFilter, measured in one run.
 
 Both filters get the same simulated inputs and measurements (predict at 100 Hz, pose
-and body velocity at 10 Hz, yaw rate at 40 Hz), interleaved in one loop so machine noise
-hits both alike.
+at 10 Hz), interleaved in one loop so machine noise hits both alike.
 filterpy is given the same exact-arc prediction and Jacobians; its cost includes building
 F, Q and H with numpy, as a user of it would have to. Prints microseconds per call and
 the ratio filterpy / ours: the median of the per-call times of each round (robust to the
@@ -27,8 +26,6 @@ from kinematic_monitor.core.ekf import BicycleEKF, FilterNoise
 PARAMS = m.VehicleParams(wheelbase=2.7, cg_to_rear_axle=1.35, wheel_radius=0.31, track_width=1.55)
 NOISE = FilterNoise()
 POSE_R = np.diag([0.05**2, 0.05**2, 0.01**2])
-RATE_VAR = 1e-4
-VEL_R = np.diag([0.05**2, 0.05**2])
 
 
 class Reference(ExtendedKalmanFilter):
@@ -73,32 +70,6 @@ def pose_residual(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return r
 
 
-def rate_h_and_jacobian(xs: np.ndarray, delta: float) -> tuple[float, np.ndarray]:
-    d = delta + PARAMS.steering_offset + xs[4]
-    lr, wb = PARAMS.cg_to_rear_axle, PARAMS.wheelbase
-    t = math.tan(d)
-    beta = math.atan(lr * t / wb)
-    dbeta = (lr / wb) * (1 + t * t) / (1 + (lr * t / wb) ** 2)
-    H = np.zeros((1, 5))
-    H[0, 3] = math.sin(beta) / lr
-    H[0, 4] = xs[3] * math.cos(beta) * dbeta / lr
-    return xs[3] * math.sin(beta) / lr, H
-
-
-def velocity_h_and_jacobian(xs: np.ndarray, delta: float) -> tuple[np.ndarray, np.ndarray]:
-    """Body velocity (vx, vy) of the CG and its 2x5 Jacobian (reference point at the CG)."""
-    d = delta + PARAMS.steering_offset + xs[4]
-    lr, wb = PARAMS.cg_to_rear_axle, PARAMS.wheelbase
-    t = math.tan(d)
-    beta = math.atan(lr * t / wb)
-    dbeta = (lr / wb) * (1 + t * t) / (1 + (lr * t / wb) ** 2)
-    cb, sb = math.cos(beta), math.sin(beta)
-    H = np.zeros((2, 5))
-    H[0, 3], H[0, 4] = cb, -xs[3] * sb * dbeta
-    H[1, 3], H[1, 4] = sb, xs[3] * cb * dbeta
-    return np.array([xs[3] * cb, xs[3] * sb]), H
-
-
 def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
     rng = np.random.default_rng(seed)
     ours = BicycleEKF(PARAMS, NOISE)
@@ -106,7 +77,7 @@ def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
     ref = Reference(dim_x=5, dim_z=3)
     ref.x = ours.state
     ref.P = ours.covariance
-    ops = ("predict", "pose update", "velocity update", "yaw-rate update")
+    ops = ("predict", "pose update")
     tot: dict[str, tuple[list[int], list[int]]] = {k: ([], []) for k in ops}  # ns per call
     pc = time.perf_counter_ns
     dt = 0.01
@@ -133,28 +104,6 @@ def run_round(steps: int, seed: int) -> dict[str, tuple[float, float]]:
             ref.update(z, lambda _x: H_POSE, h_pose, R=POSE_R, residual=pose_residual)
             c = pc()
             row = tot["pose update"]
-        elif k % 10 == 5:
-            zv = (8.0 + float(rng.normal(0, 0.05)), float(rng.normal(0, 0.05)))
-            a = pc()
-            ours.update_body_velocity(zv[0], zv[1], VEL_R)
-            b = pc()
-            hv, Hv = velocity_h_and_jacobian(ref.x, delta)
-            # same effective covariance as BicycleEKF (steering noise through dh/ddelta)
-            rv = VEL_R + NOISE.steer_std**2 * np.outer(Hv[:, 4], Hv[:, 4])
-            ref.update(np.array(zv), lambda _x, H=Hv: H, lambda _x, h=hv: h, R=rv)
-            c = pc()
-            row = tot["velocity update"]
-        elif k % 2 == 0:
-            zr = 8.0 * m.curvature(0.15 * math.sin(0.4 * t), PARAMS) + float(rng.normal(0, 0.01))
-            a = pc()
-            ours.update_yaw_rate(zr, RATE_VAR)
-            b = pc()
-            h, H = rate_h_and_jacobian(ref.x, delta)
-            # same effective variance as BicycleEKF (steering noise through dh/ddelta)
-            r = np.array([[RATE_VAR + NOISE.steer_std**2 * H[0, 4] ** 2]])
-            ref.update(np.array([zr]), lambda _x, H=H: H, lambda _x, h=h: np.array([h]), R=r)
-            c = pc()
-            row = tot["yaw-rate update"]
         else:
             continue
         row[0].append(b - a)

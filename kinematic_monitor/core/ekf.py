@@ -15,16 +15,10 @@ constant between stamps. The pose moves by the exact arc of ``model.step``; the 
 state takes the input speed (``v' = speed``), so input noise enters the state through the
 step Jacobian (``Q = G diag(speed_std^2, steer_std^2) G^T`` plus small random walks).
 
-Measurements (each returns an :class:`Innovation` with residual, covariance, NIS, dof):
+Measurement (it returns an :class:`Innovation` with residual, covariance, NIS, dof):
 
 * ``update_pose(x, y, yaw, cov)``: localisation pose of a point ``reference_x`` metres
   ahead of the CG along body x (``-l_r`` for a rear-axle ``base_link``); yaw wrapped.
-* ``update_body_velocity(vx, vy, cov)``: body-frame velocity of the same point,
-  ``vx = v cos(beta)``, ``vy = v sin(beta) (1 + reference_x / l_r)``.
-* ``update_yaw_rate(rate, var)``: IMU yaw rate, ``psi_dot = v cos(beta) tan(delta) / L``.
-
-The last two use the measured steering angle directly, so its noise (``steer_std``) is
-added to the measurement covariance: ``R + steer_std^2 (dh/ddelta)(dh/ddelta)^T``.
 
 Covariance update in Joseph form ``(I - K H) P (I - K H)^T + K R K^T`` (the same algebra
 as filterpy's ``ExtendedKalmanFilter.update``; the tests check equality). Bad input raises
@@ -34,7 +28,7 @@ Hot path: the state is a tuple of 5 floats and the covariance a tuple of its 15 
 entries (row-major upper triangle, names ``pij`` with i <= j below). Every product is
 written out with the structural zeros of the Jacobians left out: F differs from the
 identity in 6 entries, pose H selects (x, y, yaw) plus the two lever-arm terms of
-``reference_x``, the velocity and yaw-rate H only touch (v, bias). ``S^-1`` is a closed
+``reference_x``. ``S^-1`` is a closed
 form with Sylvester's criterion (leading minors > 0) as the positive-definite check.
 numpy arrays are built only where the public API returns them.
 
@@ -199,16 +193,6 @@ def _cov3(name: str, cov: object) -> tuple[float, float, float, float, float, fl
     return a, b, c, e, f, i
 
 
-def _cov2(name: str, cov: object) -> tuple[float, float, float]:
-    """Unique entries (r00, r01, r11) of a validated 2x2 covariance (fast path as _cov3)."""
-    if type(cov) is np.ndarray and cov.dtype is _F64 and cov.shape == (2, 2):
-        a, b, c, d = cov.ravel().tolist()
-        if b == c and 0.0 <= a < _INF and 0.0 <= d < _INF and -_INF < b < _INF:
-            return a, b, d
-    a, b, _, d = _cov_flat(name, cov, 2)
-    return a, b, d
-
-
 def _cov_flat(name: str, cov: object, n: int) -> list[float]:
     """Validate an n x n measurement covariance (finite, symmetric, non-negative diagonal).
 
@@ -258,16 +242,6 @@ def _inv_sym3(
         return None
     r = 1.0 / det
     return c00 * r, c01 * r, c02 * r, (a * i - c * c) * r, (b * c - a * f) * r, minor2 * r
-
-
-def _inv_sym2(a: float, b: float, d: float) -> tuple[float, float, float] | None:
-    """Inverse of the symmetric [[a, b], [b, d]] as (inv00, inv01, inv11), or None unless
-    positive definite (Sylvester's criterion)."""
-    det = a * d - b * b
-    if not (a > 0.0 and 0.0 < det < _INF):
-        return None
-    r = 1.0 / det
-    return d * r, -b * r, a * r
 
 
 def _check_finite(**values: float) -> None:
@@ -477,41 +451,7 @@ class BicycleEKF:
             qp = n.pos_rw * dt
             qw = n.yaw_rw * dt
             qb = n.bias_rw * dt
-            p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = self._p
-            # F = I except F[0,2]=fa, F[1,2]=fb, F[0,4]=fc, F[1,4]=fd, F[2,4]=fe, F[3,3]=0;
-            # rij = (F P)[i, j]; G = [[xv, fc], [yv, fd], [wv, fe], [1, 0], [0, 0]],
-            # gij = (G diag(vs, vd))[i, j]; nij = (F P F^T + G diag(vs, vd) G^T + rw)[i, j]
-            r00 = p00 + fa * p02 + fc * p04
-            r01 = p01 + fa * p12 + fc * p14
-            r02 = p02 + fa * p22 + fc * p24
-            r04 = p04 + fa * p24 + fc * p44
-            r11 = p11 + fb * p12 + fd * p14
-            r12 = p12 + fb * p22 + fd * p24
-            r14 = p14 + fb * p24 + fd * p44
-            r22 = p22 + fe * p24
-            r24 = p24 + fe * p44
-            g00 = xv * vs
-            g01 = fc * vd
-            g10 = yv * vs
-            g11 = fd * vd
-            g20 = wv * vs
-            g21 = fe * vd
-            n00 = r00 + r02 * fa + r04 * fc + g00 * xv + g01 * fc + qp
-            n01 = r01 + r02 * fb + r04 * fd + g00 * yv + g01 * fd
-            n02 = r02 + r04 * fe + g00 * wv + g01 * fe
-            n03 = g00
-            n04 = r04
-            n11 = r11 + r12 * fb + r14 * fd + g10 * yv + g11 * fd + qp
-            n12 = r12 + r14 * fe + g10 * wv + g11 * fe
-            n13 = g10
-            n14 = r14
-            n22 = r22 + r24 * fe + g20 * wv + g21 * fe + qw
-            n23 = g20
-            n24 = r24
-            n33 = vs
-            n34 = 0.0
-            n44 = p44 + qb
-            self._p = (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
+            self._p = _propagate(self._p, fa, fb, fc, fd, fe, xv, yv, wv, vs, vd, qp, qw, qb)
             self._xs = (x, y, yaw, speed, bias)
             self._stamp = float(stamp)
         self._delta_meas = delta
@@ -559,24 +499,8 @@ class BicycleEKF:
         e0 = float(x) - sx - d * c
         e1 = float(y) - sy - d * s
         e2 = (float(yaw) - syaw + _PI) % _TWO_PI - _PI
-        p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = self._p
-        # mij = (P H^T)[i, j], sij = (H P H^T + R)[i, j]
-        m00 = p00 + p02 * ha
-        m01 = p01 + p02 * hb
-        m10 = p01 + p12 * ha
-        m11 = p11 + p12 * hb
-        m20 = p02 + p22 * ha
-        m21 = p12 + p22 * hb
-        m30 = p03 + p23 * ha
-        m31 = p13 + p23 * hb
-        m40 = p04 + p24 * ha
-        m41 = p14 + p24 * hb
-        s00 = m00 + ha * m20 + r00
-        s01 = m01 + ha * m21 + r01
-        s02 = p02 + ha * p22 + r02
-        s11 = m11 + hb * m21 + r11
-        s12 = p12 + hb * p22 + r12
-        s22 = p22 + r22
+        m, (s00, s01, s02, s11, s12, s22) = _pose_innovation_covariance(
+            self._p, ha, hb, r00, r01, r02, r11, r12, r22)
         inv = _inv_sym3(s00, s01, s02, s11, s12, s22)
         if inv is None:
             raise ValueError(
@@ -586,83 +510,10 @@ class BicycleEKF:
         si00, si01, si02, si11, si12, si22 = inv
         # K = P H^T S^-1 (kij), A = I - K H (aij; the rest of A is 0 or -kij),
         # B = A P (bij), D = K R - B H^T (dij), P' = B + D K^T (nij) [Joseph]
-        k00 = m00 * si00 + m01 * si01 + p02 * si02
-        k01 = m00 * si01 + m01 * si11 + p02 * si12
-        k02 = m00 * si02 + m01 * si12 + p02 * si22
-        k10 = m10 * si00 + m11 * si01 + p12 * si02
-        k11 = m10 * si01 + m11 * si11 + p12 * si12
-        k12 = m10 * si02 + m11 * si12 + p12 * si22
-        k20 = m20 * si00 + m21 * si01 + p22 * si02
-        k21 = m20 * si01 + m21 * si11 + p22 * si12
-        k22 = m20 * si02 + m21 * si12 + p22 * si22
-        k30 = m30 * si00 + m31 * si01 + p23 * si02
-        k31 = m30 * si01 + m31 * si11 + p23 * si12
-        k32 = m30 * si02 + m31 * si12 + p23 * si22
-        k40 = m40 * si00 + m41 * si01 + p24 * si02
-        k41 = m40 * si01 + m41 * si11 + p24 * si12
-        k42 = m40 * si02 + m41 * si12 + p24 * si22
-        a00 = 1.0 - k00
-        a02 = k00 * ha + k01 * hb + k02
-        a11 = 1.0 - k11
-        a12 = k10 * ha + k11 * hb + k12
-        a22 = 1.0 - k20 * ha - k21 * hb - k22
-        a32 = k30 * ha + k31 * hb + k32
-        a42 = k40 * ha + k41 * hb + k42
-        b00 = a00 * p00 - k01 * p01 - a02 * p02
-        b01 = a00 * p01 - k01 * p11 - a02 * p12
-        b02 = a00 * p02 - k01 * p12 - a02 * p22
-        b03 = a00 * p03 - k01 * p13 - a02 * p23
-        b04 = a00 * p04 - k01 * p14 - a02 * p24
-        b10 = a11 * p01 - k10 * p00 - a12 * p02
-        b11 = a11 * p11 - k10 * p01 - a12 * p12
-        b12 = a11 * p12 - k10 * p02 - a12 * p22
-        b13 = a11 * p13 - k10 * p03 - a12 * p23
-        b14 = a11 * p14 - k10 * p04 - a12 * p24
-        b20 = a22 * p02 - k20 * p00 - k21 * p01
-        b21 = a22 * p12 - k20 * p01 - k21 * p11
-        b22 = a22 * p22 - k20 * p02 - k21 * p12
-        b23 = a22 * p23 - k20 * p03 - k21 * p13
-        b24 = a22 * p24 - k20 * p04 - k21 * p14
-        b30 = p03 - k30 * p00 - k31 * p01 - a32 * p02
-        b31 = p13 - k30 * p01 - k31 * p11 - a32 * p12
-        b32 = p23 - k30 * p02 - k31 * p12 - a32 * p22
-        b33 = p33 - k30 * p03 - k31 * p13 - a32 * p23
-        b34 = p34 - k30 * p04 - k31 * p14 - a32 * p24
-        b40 = p04 - k40 * p00 - k41 * p01 - a42 * p02
-        b41 = p14 - k40 * p01 - k41 * p11 - a42 * p12
-        b42 = p24 - k40 * p02 - k41 * p12 - a42 * p22
-        b44 = p44 - k40 * p04 - k41 * p14 - a42 * p24
-        d00 = k00 * r00 + k01 * r01 + k02 * r02 - b00 - b02 * ha
-        d01 = k00 * r01 + k01 * r11 + k02 * r12 - b01 - b02 * hb
-        d02 = k00 * r02 + k01 * r12 + k02 * r22 - b02
-        d10 = k10 * r00 + k11 * r01 + k12 * r02 - b10 - b12 * ha
-        d11 = k10 * r01 + k11 * r11 + k12 * r12 - b11 - b12 * hb
-        d12 = k10 * r02 + k11 * r12 + k12 * r22 - b12
-        d20 = k20 * r00 + k21 * r01 + k22 * r02 - b20 - b22 * ha
-        d21 = k20 * r01 + k21 * r11 + k22 * r12 - b21 - b22 * hb
-        d22 = k20 * r02 + k21 * r12 + k22 * r22 - b22
-        d30 = k30 * r00 + k31 * r01 + k32 * r02 - b30 - b32 * ha
-        d31 = k30 * r01 + k31 * r11 + k32 * r12 - b31 - b32 * hb
-        d32 = k30 * r02 + k31 * r12 + k32 * r22 - b32
-        d40 = k40 * r00 + k41 * r01 + k42 * r02 - b40 - b42 * ha
-        d41 = k40 * r01 + k41 * r11 + k42 * r12 - b41 - b42 * hb
-        d42 = k40 * r02 + k41 * r12 + k42 * r22 - b42
-        n00 = b00 + d00 * k00 + d01 * k01 + d02 * k02
-        n01 = b01 + d00 * k10 + d01 * k11 + d02 * k12
-        n02 = b02 + d00 * k20 + d01 * k21 + d02 * k22
-        n03 = b03 + d00 * k30 + d01 * k31 + d02 * k32
-        n04 = b04 + d00 * k40 + d01 * k41 + d02 * k42
-        n11 = b11 + d10 * k10 + d11 * k11 + d12 * k12
-        n12 = b12 + d10 * k20 + d11 * k21 + d12 * k22
-        n13 = b13 + d10 * k30 + d11 * k31 + d12 * k32
-        n14 = b14 + d10 * k40 + d11 * k41 + d12 * k42
-        n22 = b22 + d20 * k20 + d21 * k21 + d22 * k22
-        n23 = b23 + d20 * k30 + d21 * k31 + d22 * k32
-        n24 = b24 + d20 * k40 + d21 * k41 + d22 * k42
-        n33 = b33 + d30 * k30 + d31 * k31 + d32 * k32
-        n34 = b34 + d30 * k40 + d31 * k41 + d32 * k42
-        n44 = b44 + d40 * k40 + d41 * k41 + d42 * k42
-        self._p = (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
+        p = self._p
+        k = _pose_gain(m, (p[2], p[6], p[9], p[10], p[11]), inv)
+        self._p = _joseph_pose(self._p, k, ha, hb, (r00, r01, r02, r11, r12, r22))
+        k00, k01, k02, k10, k11, k12, k20, k21, k22, k30, k31, k32, k40, k41, k42 = k
         self._xs = (
             sx + k00 * e0 + k01 * e1 + k02 * e2,
             sy + k10 * e0 + k11 * e1 + k12 * e2,
@@ -678,270 +529,169 @@ class BicycleEKF:
         )
         return e0, e1, e2, s00, s01, s02, s11, s12, s22, nis
 
-    def pose_model(self) -> tuple[np.ndarray, np.ndarray]:
-        """Predicted pose h(state) of the reference point and its 3x5 Jacobian H."""
-        sx, sy, syaw, _, _ = self._xs
-        d = self.reference_x
-        c, s = math.cos(syaw), math.sin(syaw)
-        h = np.array([sx + d * c, sy + d * s, syaw])
-        H = np.zeros((3, N_STATE))
-        H[0, IX] = H[1, IY] = H[2, IYAW] = 1.0
-        H[0, IYAW] = -d * s
-        H[1, IYAW] = d * c
-        return h, H
 
-    def _velocity_terms(
-        self, delta: float | None
-    ) -> tuple[float, float, float, float, float, float]:
-        """(vx, vy) of the reference point and dvx/dv, dvx/dbias, dvy/dv, dvy/dbias."""
-        p = self.params
-        v = self._xs[IV]
-        d_true = self.steer(delta)
-        lr, wb = p.cg_to_rear_axle, p.wheelbase
-        tan_d = math.tan(d_true)
-        ratio = lr * tan_d / wb
-        beta = math.atan(ratio)
-        dbeta = (lr / wb) * (1.0 + tan_d * tan_d) / (1.0 + ratio * ratio)
-        cb, sb = math.cos(beta), math.sin(beta)
-        arm = 1.0 + self.reference_x / lr  # lateral speed grows with yaw rate * offset
-        return v * cb, v * sb * arm, cb, -v * sb * dbeta, sb * arm, v * cb * dbeta * arm
+def _pose_innovation_covariance(p: tuple[float, ...], ha: float, hb: float, r00: float,
+                                r01: float, r02: float, r11: float, r12: float, r22: float
+                                ) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """(P H^T as m00, m01, m10, ..., m41; the unique entries of S = H P H^T + R) of the pose
+    update, H = [[1, 0, ha, 0, 0], [0, 1, hb, 0, 0], [0, 0, 1, 0, 0]]."""
+    p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = p
+    m00 = p00 + p02 * ha
+    m01 = p01 + p02 * hb
+    m10 = p01 + p12 * ha
+    m11 = p11 + p12 * hb
+    m20 = p02 + p22 * ha
+    m21 = p12 + p22 * hb
+    m30 = p03 + p23 * ha
+    m31 = p13 + p23 * hb
+    m40 = p04 + p24 * ha
+    m41 = p14 + p24 * hb
+    return (m00, m01, m10, m11, m20, m21, m30, m31, m40, m41), (
+        m00 + ha * m20 + r00, m01 + ha * m21 + r01, p02 + ha * p22 + r02,
+        m11 + hb * m21 + r11, p12 + hb * p22 + r12, p22 + r22)
 
-    def velocity_model(self, delta: float | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """Predicted body velocity (vx, vy) [m/s] of the reference point and its 2x5 H.
 
-        delta: measured road-wheel angle [rad]; default the last one given to predict.
-        """
-        vx, vy, h03, h04, h13, h14 = self._velocity_terms(delta)
-        H = np.zeros((2, N_STATE))
-        H[0, IV] = h03
-        H[0, IBIAS] = h04
-        H[1, IV] = h13
-        H[1, IBIAS] = h14
-        return np.array([vx, vy]), H
+def _pose_gain(m: tuple[float, ...], p: tuple[float, ...], si: tuple[float, ...]
+               ) -> tuple[float, ...]:
+    """Gain K = P H^T S^-1 of the pose update (15 entries kij, row-major 5x3)."""
+    m00, m01, m10, m11, m20, m21, m30, m31, m40, m41 = m
+    p02, p12, p22, p23, p24 = p
+    si00, si01, si02, si11, si12, si22 = si
+    k00 = m00 * si00 + m01 * si01 + p02 * si02
+    k01 = m00 * si01 + m01 * si11 + p02 * si12
+    k02 = m00 * si02 + m01 * si12 + p02 * si22
+    k10 = m10 * si00 + m11 * si01 + p12 * si02
+    k11 = m10 * si01 + m11 * si11 + p12 * si12
+    k12 = m10 * si02 + m11 * si12 + p12 * si22
+    k20 = m20 * si00 + m21 * si01 + p22 * si02
+    k21 = m20 * si01 + m21 * si11 + p22 * si12
+    k22 = m20 * si02 + m21 * si12 + p22 * si22
+    k30 = m30 * si00 + m31 * si01 + p23 * si02
+    k31 = m30 * si01 + m31 * si11 + p23 * si12
+    k32 = m30 * si02 + m31 * si12 + p23 * si22
+    k40 = m40 * si00 + m41 * si01 + p24 * si02
+    k41 = m40 * si01 + m41 * si11 + p24 * si12
+    k42 = m40 * si02 + m41 * si12 + p24 * si22
+    return (k00, k01, k02, k10, k11, k12, k20, k21, k22, k30, k31, k32, k40, k41, k42)
 
-    def update_body_velocity(
-        self, vx: float, vy: float, cov: object, delta: float | None = None
-    ) -> Innovation:
-        """Body-frame velocity update (vx, vy) [m/s] with 2x2 covariance [m^2/s^2]."""
-        if not self._initialised:
-            raise _not_initialised()
-        if not (_isfinite(vx) and _isfinite(vy)):
-            _check_finite(vx=vx, vy=vy)
-        r00, r01, r11 = _cov2("velocity covariance", cov)
-        hx, hy, h03, h04, h13, h14 = self._velocity_terms(delta)
-        # the measured steering angle enters h directly: add its noise (dh/ddelta = dh/dbias)
-        var_d = self.noise.steer_std**2
-        r00 += var_d * h04 * h04
-        r01 += var_d * h04 * h14
-        r11 += var_d * h14 * h14
-        e0 = float(vx) - hx
-        e1 = float(vy) - hy
-        p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = self._p
-        # H = [[0, 0, 0, h03, h04], [0, 0, 0, h13, h14]];
-        # mij = (P H^T)[i, j], sij = (H P H^T + R)[i, j]
-        m00 = p03 * h03 + p04 * h04
-        m01 = p03 * h13 + p04 * h14
-        m10 = p13 * h03 + p14 * h04
-        m11 = p13 * h13 + p14 * h14
-        m20 = p23 * h03 + p24 * h04
-        m21 = p23 * h13 + p24 * h14
-        m30 = p33 * h03 + p34 * h04
-        m31 = p33 * h13 + p34 * h14
-        m40 = p34 * h03 + p44 * h04
-        m41 = p34 * h13 + p44 * h14
-        s00 = h03 * m30 + h04 * m40 + r00
-        s01 = h03 * m31 + h04 * m41 + r01
-        s11 = h13 * m31 + h14 * m41 + r11
-        inv = _inv_sym2(s00, s01, s11)
-        if inv is None:
-            raise ValueError(
-                "velocity update: innovation covariance is not positive definite "
-                "(check its covariance)"
-            )
-        si00, si01, si11 = inv
-        # K = P H^T S^-1 (kij), A = I - K H (aij; columns 0-2 of A are the identity's),
-        # B = A P (bij), D = K R - B H^T (dij), P' = B + D K^T (nij) [Joseph]
-        k00 = m00 * si00 + m01 * si01
-        k01 = m00 * si01 + m01 * si11
-        k10 = m10 * si00 + m11 * si01
-        k11 = m10 * si01 + m11 * si11
-        k20 = m20 * si00 + m21 * si01
-        k21 = m20 * si01 + m21 * si11
-        k30 = m30 * si00 + m31 * si01
-        k31 = m30 * si01 + m31 * si11
-        k40 = m40 * si00 + m41 * si01
-        k41 = m40 * si01 + m41 * si11
-        a03 = k00 * h03 + k01 * h13
-        a04 = k00 * h04 + k01 * h14
-        a13 = k10 * h03 + k11 * h13
-        a14 = k10 * h04 + k11 * h14
-        a23 = k20 * h03 + k21 * h13
-        a24 = k20 * h04 + k21 * h14
-        a33 = 1.0 - k30 * h03 - k31 * h13
-        a34 = k30 * h04 + k31 * h14
-        a43 = k40 * h03 + k41 * h13
-        a44 = 1.0 - k40 * h04 - k41 * h14
-        b00 = p00 - a03 * p03 - a04 * p04
-        b01 = p01 - a03 * p13 - a04 * p14
-        b02 = p02 - a03 * p23 - a04 * p24
-        b03 = p03 - a03 * p33 - a04 * p34
-        b04 = p04 - a03 * p34 - a04 * p44
-        b11 = p11 - a13 * p13 - a14 * p14
-        b12 = p12 - a13 * p23 - a14 * p24
-        b13 = p13 - a13 * p33 - a14 * p34
-        b14 = p14 - a13 * p34 - a14 * p44
-        b22 = p22 - a23 * p23 - a24 * p24
-        b23 = p23 - a23 * p33 - a24 * p34
-        b24 = p24 - a23 * p34 - a24 * p44
-        b33 = a33 * p33 - a34 * p34
-        b34 = a33 * p34 - a34 * p44
-        b43 = a44 * p34 - a43 * p33
-        b44 = a44 * p44 - a43 * p34
-        d00 = k00 * r00 + k01 * r01 - b03 * h03 - b04 * h04
-        d01 = k00 * r01 + k01 * r11 - b03 * h13 - b04 * h14
-        d10 = k10 * r00 + k11 * r01 - b13 * h03 - b14 * h04
-        d11 = k10 * r01 + k11 * r11 - b13 * h13 - b14 * h14
-        d20 = k20 * r00 + k21 * r01 - b23 * h03 - b24 * h04
-        d21 = k20 * r01 + k21 * r11 - b23 * h13 - b24 * h14
-        d30 = k30 * r00 + k31 * r01 - b33 * h03 - b34 * h04
-        d31 = k30 * r01 + k31 * r11 - b33 * h13 - b34 * h14
-        d40 = k40 * r00 + k41 * r01 - b43 * h03 - b44 * h04
-        d41 = k40 * r01 + k41 * r11 - b43 * h13 - b44 * h14
-        n00 = b00 + d00 * k00 + d01 * k01
-        n01 = b01 + d00 * k10 + d01 * k11
-        n02 = b02 + d00 * k20 + d01 * k21
-        n03 = b03 + d00 * k30 + d01 * k31
-        n04 = b04 + d00 * k40 + d01 * k41
-        n11 = b11 + d10 * k10 + d11 * k11
-        n12 = b12 + d10 * k20 + d11 * k21
-        n13 = b13 + d10 * k30 + d11 * k31
-        n14 = b14 + d10 * k40 + d11 * k41
-        n22 = b22 + d20 * k20 + d21 * k21
-        n23 = b23 + d20 * k30 + d21 * k31
-        n24 = b24 + d20 * k40 + d21 * k41
-        n33 = b33 + d30 * k30 + d31 * k31
-        n34 = b34 + d30 * k40 + d31 * k41
-        n44 = b44 + d40 * k40 + d41 * k41
-        self._p = (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
-        sx, sy, syaw, sv, sb = self._xs
-        self._xs = (
-            sx + k00 * e0 + k01 * e1,
-            sy + k10 * e0 + k11 * e1,
-            (syaw + k20 * e0 + k21 * e1 + _PI) % _TWO_PI - _PI,
-            sv + k30 * e0 + k31 * e1,
-            sb + k40 * e0 + k41 * e1,
-        )
-        nis = si00 * e0 * e0 + 2.0 * si01 * e0 * e1 + si11 * e1 * e1
-        return _innovation(np.array((e0, e1)), np.array((s00, s01, s11))[_SYM2], nis, 2)
 
-    def _yaw_rate_terms(self, delta: float | None) -> tuple[float, float, float]:
-        """Predicted yaw rate [rad/s] and its partials d/dv, d/dbias."""
-        p = self.params
-        v = self._xs[IV]
-        d_true = self.steer(delta)
-        lr, wb = p.cg_to_rear_axle, p.wheelbase
-        tan_d = math.tan(d_true)
-        ratio = lr * tan_d / wb
-        beta = math.atan(ratio)
-        dbeta = (lr / wb) * (1.0 + tan_d * tan_d) / (1.0 + ratio * ratio)
-        kappa = math.sin(beta) / lr
-        return v * kappa, kappa, v * math.cos(beta) * dbeta / lr
+def _joseph_pose_b(p: tuple[float, ...], k: tuple[float, ...], ha: float, hb: float
+                   ) -> tuple[float, ...]:
+    """B = A P with A = I - K H of the pose update (entries bij)."""
+    p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = p
+    k00, k01, k02, k10, k11, k12, k20, k21, k22, k30, k31, k32, k40, k41, k42 = k
+    a00 = 1.0 - k00
+    a02 = k00 * ha + k01 * hb + k02
+    a11 = 1.0 - k11
+    a12 = k10 * ha + k11 * hb + k12
+    a22 = 1.0 - k20 * ha - k21 * hb - k22
+    a32 = k30 * ha + k31 * hb + k32
+    a42 = k40 * ha + k41 * hb + k42
+    b00 = a00 * p00 - k01 * p01 - a02 * p02
+    b01 = a00 * p01 - k01 * p11 - a02 * p12
+    b02 = a00 * p02 - k01 * p12 - a02 * p22
+    b03 = a00 * p03 - k01 * p13 - a02 * p23
+    b04 = a00 * p04 - k01 * p14 - a02 * p24
+    b10 = a11 * p01 - k10 * p00 - a12 * p02
+    b11 = a11 * p11 - k10 * p01 - a12 * p12
+    b12 = a11 * p12 - k10 * p02 - a12 * p22
+    b13 = a11 * p13 - k10 * p03 - a12 * p23
+    b14 = a11 * p14 - k10 * p04 - a12 * p24
+    b20 = a22 * p02 - k20 * p00 - k21 * p01
+    b21 = a22 * p12 - k20 * p01 - k21 * p11
+    b22 = a22 * p22 - k20 * p02 - k21 * p12
+    b23 = a22 * p23 - k20 * p03 - k21 * p13
+    b24 = a22 * p24 - k20 * p04 - k21 * p14
+    b30 = p03 - k30 * p00 - k31 * p01 - a32 * p02
+    b31 = p13 - k30 * p01 - k31 * p11 - a32 * p12
+    b32 = p23 - k30 * p02 - k31 * p12 - a32 * p22
+    b33 = p33 - k30 * p03 - k31 * p13 - a32 * p23
+    b34 = p34 - k30 * p04 - k31 * p14 - a32 * p24
+    b40 = p04 - k40 * p00 - k41 * p01 - a42 * p02
+    b41 = p14 - k40 * p01 - k41 * p11 - a42 * p12
+    b42 = p24 - k40 * p02 - k41 * p12 - a42 * p22
+    b44 = p44 - k40 * p04 - k41 * p14 - a42 * p24
+    return (b00, b01, b02, b03, b04, b10, b11, b12, b13, b14, b20, b21, b22, b23, b24,
+            b30, b31, b32, b33, b34, b40, b41, b42, b44)
 
-    def yaw_rate_model(self, delta: float | None = None) -> tuple[float, np.ndarray]:
-        """Predicted yaw rate [rad/s] = v sin(beta) / l_r and its 1x5 Jacobian H."""
-        rate, h3, h4 = self._yaw_rate_terms(delta)
-        H = np.zeros((1, N_STATE))
-        H[0, IV] = h3
-        H[0, IBIAS] = h4
-        return rate, H
 
-    def update_yaw_rate(self, rate: float, var: float, delta: float | None = None) -> Innovation:
-        """IMU yaw-rate update: rate [rad/s], variance var [rad^2/s^2].
+def _joseph_pose(p: tuple[float, ...], k: tuple[float, ...], ha: float, hb: float,
+                 r: tuple[float, ...]) -> tuple[float, ...]:
+    """P' = B + D K^T with D = K R - B H^T [Joseph]: the updated covariance (15 entries)."""
+    (b00, b01, b02, b03, b04, b10, b11, b12, b13, b14, b20, b21, b22, b23, b24,
+     b30, b31, b32, b33, b34, b40, b41, b42, b44) = _joseph_pose_b(p, k, ha, hb)
+    k00, k01, k02, k10, k11, k12, k20, k21, k22, k30, k31, k32, k40, k41, k42 = k
+    r00, r01, r02, r11, r12, r22 = r
+    d00 = k00 * r00 + k01 * r01 + k02 * r02 - b00 - b02 * ha
+    d01 = k00 * r01 + k01 * r11 + k02 * r12 - b01 - b02 * hb
+    d02 = k00 * r02 + k01 * r12 + k02 * r22 - b02
+    d10 = k10 * r00 + k11 * r01 + k12 * r02 - b10 - b12 * ha
+    d11 = k10 * r01 + k11 * r11 + k12 * r12 - b11 - b12 * hb
+    d12 = k10 * r02 + k11 * r12 + k12 * r22 - b12
+    d20 = k20 * r00 + k21 * r01 + k22 * r02 - b20 - b22 * ha
+    d21 = k20 * r01 + k21 * r11 + k22 * r12 - b21 - b22 * hb
+    d22 = k20 * r02 + k21 * r12 + k22 * r22 - b22
+    d30 = k30 * r00 + k31 * r01 + k32 * r02 - b30 - b32 * ha
+    d31 = k30 * r01 + k31 * r11 + k32 * r12 - b31 - b32 * hb
+    d32 = k30 * r02 + k31 * r12 + k32 * r22 - b32
+    d40 = k40 * r00 + k41 * r01 + k42 * r02 - b40 - b42 * ha
+    d41 = k40 * r01 + k41 * r11 + k42 * r12 - b41 - b42 * hb
+    d42 = k40 * r02 + k41 * r12 + k42 * r22 - b42
+    n00 = b00 + d00 * k00 + d01 * k01 + d02 * k02
+    n01 = b01 + d00 * k10 + d01 * k11 + d02 * k12
+    n02 = b02 + d00 * k20 + d01 * k21 + d02 * k22
+    n03 = b03 + d00 * k30 + d01 * k31 + d02 * k32
+    n04 = b04 + d00 * k40 + d01 * k41 + d02 * k42
+    n11 = b11 + d10 * k10 + d11 * k11 + d12 * k12
+    n12 = b12 + d10 * k20 + d11 * k21 + d12 * k22
+    n13 = b13 + d10 * k30 + d11 * k31 + d12 * k32
+    n14 = b14 + d10 * k40 + d11 * k41 + d12 * k42
+    n22 = b22 + d20 * k20 + d21 * k21 + d22 * k22
+    n23 = b23 + d20 * k30 + d21 * k31 + d22 * k32
+    n24 = b24 + d20 * k40 + d21 * k41 + d22 * k42
+    n33 = b33 + d30 * k30 + d31 * k31 + d32 * k32
+    n34 = b34 + d30 * k40 + d31 * k41 + d32 * k42
+    n44 = b44 + d40 * k40 + d41 * k41 + d42 * k42
+    return (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
 
-        delta: measured road-wheel angle [rad] at the IMU stamp; default the last input.
-        """
-        if not self._initialised:
-            raise _not_initialised()
-        if not (_isfinite(rate) and _isfinite(var)):
-            _check_finite(rate=rate, var=var)
-        if var <= 0.0:
-            raise ValueError(f"yaw-rate variance var={var!r} must be > 0")
-        if delta is not None and not _isfinite(delta):
-            _check_finite(delta=delta)
-        h, h3, h4 = self._yaw_rate_terms(delta)
-        # the measured steering angle enters h directly: add its noise (dh/ddelta = dh/dbias)
-        steer_std = self.noise.steer_std
-        r00 = float(var) + steer_std * steer_std * h4 * h4
-        e0 = float(rate) - h
-        p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = self._p
-        # H = [0, 0, 0, h3, h4]; mi0 = (P H^T)[i], s00 = H P H^T + r (> 0 as r > 0)
-        m00 = p03 * h3 + p04 * h4
-        m10 = p13 * h3 + p14 * h4
-        m20 = p23 * h3 + p24 * h4
-        m30 = p33 * h3 + p34 * h4
-        m40 = p34 * h3 + p44 * h4
-        s00 = h3 * m30 + h4 * m40 + r00
-        si00 = 1.0 / s00
-        # K = P H^T / s (ki0), A = I - K H (aij; columns 0-2 of A are the identity's),
-        # B = A P (bij), D = K r - B H^T (di0), P' = B + D K^T (nij) [Joseph]
-        k00 = m00 * si00
-        k10 = m10 * si00
-        k20 = m20 * si00
-        k30 = m30 * si00
-        k40 = m40 * si00
-        a03 = k00 * h3
-        a04 = k00 * h4
-        a13 = k10 * h3
-        a14 = k10 * h4
-        a23 = k20 * h3
-        a24 = k20 * h4
-        a33 = 1.0 - k30 * h3
-        a34 = k30 * h4
-        a43 = k40 * h3
-        a44 = 1.0 - k40 * h4
-        b00 = p00 - a03 * p03 - a04 * p04
-        b01 = p01 - a03 * p13 - a04 * p14
-        b02 = p02 - a03 * p23 - a04 * p24
-        b03 = p03 - a03 * p33 - a04 * p34
-        b04 = p04 - a03 * p34 - a04 * p44
-        b11 = p11 - a13 * p13 - a14 * p14
-        b12 = p12 - a13 * p23 - a14 * p24
-        b13 = p13 - a13 * p33 - a14 * p34
-        b14 = p14 - a13 * p34 - a14 * p44
-        b22 = p22 - a23 * p23 - a24 * p24
-        b23 = p23 - a23 * p33 - a24 * p34
-        b24 = p24 - a23 * p34 - a24 * p44
-        b33 = a33 * p33 - a34 * p34
-        b34 = a33 * p34 - a34 * p44
-        b43 = a44 * p34 - a43 * p33
-        b44 = a44 * p44 - a43 * p34
-        d00 = k00 * r00 - b03 * h3 - b04 * h4
-        d10 = k10 * r00 - b13 * h3 - b14 * h4
-        d20 = k20 * r00 - b23 * h3 - b24 * h4
-        d30 = k30 * r00 - b33 * h3 - b34 * h4
-        d40 = k40 * r00 - b43 * h3 - b44 * h4
-        n00 = b00 + d00 * k00
-        n01 = b01 + d00 * k10
-        n02 = b02 + d00 * k20
-        n03 = b03 + d00 * k30
-        n04 = b04 + d00 * k40
-        n11 = b11 + d10 * k10
-        n12 = b12 + d10 * k20
-        n13 = b13 + d10 * k30
-        n14 = b14 + d10 * k40
-        n22 = b22 + d20 * k20
-        n23 = b23 + d20 * k30
-        n24 = b24 + d20 * k40
-        n33 = b33 + d30 * k30
-        n34 = b34 + d30 * k40
-        n44 = b44 + d40 * k40
-        self._p = (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
-        sx, sy, syaw, sv, sb = self._xs
-        self._xs = (
-            sx + k00 * e0,
-            sy + k10 * e0,
-            (syaw + k20 * e0 + _PI) % _TWO_PI - _PI,
-            sv + k30 * e0,
-            sb + k40 * e0,
-        )
-        return _innovation(np.array((e0,)), np.array(((s00,),)), si00 * e0 * e0, 1)
+
+def _propagate(p: tuple[float, ...], fa: float, fb: float, fc: float, fd: float, fe: float,
+               xv: float, yv: float, wv: float, vs: float, vd: float, qp: float, qw: float,
+               qb: float) -> tuple[float, ...]:
+    """P' = F P F^T + G diag(vs, vd) G^T + random walks (15 unique entries) of one prediction;
+    the Jacobian entries are those of :meth:`BicycleEKF.predict`."""
+    p00, p01, p02, p03, p04, p11, p12, p13, p14, p22, p23, p24, p33, p34, p44 = p
+    # F = I except F[0,2]=fa, F[1,2]=fb, F[0,4]=fc, F[1,4]=fd, F[2,4]=fe, F[3,3]=0;
+    # rij = (F P)[i, j]; G = [[xv, fc], [yv, fd], [wv, fe], [1, 0], [0, 0]],
+    # gij = (G diag(vs, vd))[i, j]; nij = (F P F^T + G diag(vs, vd) G^T + rw)[i, j]
+    r00 = p00 + fa * p02 + fc * p04
+    r01 = p01 + fa * p12 + fc * p14
+    r02 = p02 + fa * p22 + fc * p24
+    r04 = p04 + fa * p24 + fc * p44
+    r11 = p11 + fb * p12 + fd * p14
+    r12 = p12 + fb * p22 + fd * p24
+    r14 = p14 + fb * p24 + fd * p44
+    r22 = p22 + fe * p24
+    r24 = p24 + fe * p44
+    g00 = xv * vs
+    g01 = fc * vd
+    g10 = yv * vs
+    g11 = fd * vd
+    g20 = wv * vs
+    g21 = fe * vd
+    n00 = r00 + r02 * fa + r04 * fc + g00 * xv + g01 * fc + qp
+    n01 = r01 + r02 * fb + r04 * fd + g00 * yv + g01 * fd
+    n02 = r02 + r04 * fe + g00 * wv + g01 * fe
+    n03 = g00
+    n04 = r04
+    n11 = r11 + r12 * fb + r14 * fd + g10 * yv + g11 * fd + qp
+    n12 = r12 + r14 * fe + g10 * wv + g11 * fe
+    n13 = g10
+    n14 = r14
+    n22 = r22 + r24 * fe + g20 * wv + g21 * fe + qw
+    n23 = g20
+    n24 = r24
+    n33 = vs
+    n34 = 0.0
+    n44 = p44 + qb
+    return (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
