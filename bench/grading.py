@@ -27,6 +27,7 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core import model
 from kinematic_monitor.core.events import Event
 from kinematic_monitor.core.samples import ChassisSample, ImuSample
@@ -109,7 +110,7 @@ def run_monitor(samples: Sequence[Any], config: Mapping[str, Any]) -> list[Event
     """Feed the samples to a fresh Monitor; return all its events (flushed at the end)."""
     from kinematic_monitor.core.monitor import Monitor
 
-    m = Monitor(config)
+    m = Monitor(validate(config))
     for s in samples:
         m.process(s)
     if samples:

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from kinematic_monitor.core.checks import CheckSet, build_checks
 from kinematic_monitor.core.checks.base import MODEL_TOLERANCE, PREFIX, Check, CheckStatus
@@ -31,6 +31,9 @@ from kinematic_monitor.core.samples import (
     LocalizationSample,
 )
 from kinematic_monitor.core.triage import Evidence
+
+if TYPE_CHECKING:  # pragma: no cover - typing only
+    from kinematic_monitor.config.validation import MonitorConfig
 
 #: decision grid [s] of header-stamp time (10 Hz; common practice, no source)
 DECISION_PERIOD = 0.1
@@ -54,8 +57,7 @@ _isfinite = math.isfinite
 class Monitor:
     """Kinematic consistency monitor; see the module docstring.
 
-    ``config``: a ``config.validation.MonitorConfig`` or a mapping of dotted parameter names
-    (validated; a bad value raises ``config.schema.ParamError``).
+    ``config``: the validated configuration (``config.validation.validate``).
 
     Public API: ``process(sample_or_TimeReset)`` (stamp order; never raises, bad samples
     are counted in ``counters``), ``statuses()``, ``series_values()``, ``levels()``,
@@ -64,11 +66,7 @@ class Monitor:
     (reset-topic message), ``flush(end_stamp)``, ``reset_timeline(stamp)``, ``notes``.
     """
 
-    def __init__(self, config: Any) -> None:
-        if isinstance(config, Mapping):
-            from kinematic_monitor.config.validation import validate
-
-            config = validate(config)
+    def __init__(self, config: MonitorConfig) -> None:
         self.config = config
         self.p = config.vehicle
         self.events: list[Event] = []

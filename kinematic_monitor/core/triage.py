@@ -92,42 +92,55 @@ def classify(ev: Evidence) -> Verdict:
     if ch == "input":
         return Verdict("input_stale", "stale", ev.detail or "an input is missing or late")
     if ch == "slip_ratio":
-        front = abs(_z(ev.slip_front)) >= abs(_z(ev.slip_rear))
-        kappa = _z(ev.slip_front) if front else _z(ev.slip_rear)
-        axle = "front" if front else "rear"
-        what = "wheel spin" if kappa > 0 else "wheel lock"
-        return Verdict(
-            "longitudinal_slip", what, f"{what} on the {axle} axle: slip ratio {kappa:+.2f}"
-        )
+        return _wheel_slip(ev)
     if ch == "wheel_scale":
-        k = _nanmean(ev.slip_front, ev.slip_rear)
-        if _fin(k) and abs(k) > CALIBRATION_MAX_SCALE:
-            # both axles far off the ground speed: the wheels spin or lock together
-            what = "wheel spin" if k > 0 else "wheel lock"
-            return Verdict("longitudinal_slip", what,
-                           f"{what} on both axles: slip ratio {k:+.2f}")
-        return Verdict(
-            "calibration_bias", "wheel_radius",
-            f"wheel speeds {abs(k) * 100:.1f} % {'above' if k > 0 else 'below'} ground speed "
-            "on both axles: check wheel radius (run kinematic-monitor calibrate)",
-        )
+        return _wheel_scale(ev)
     if ch == "heading":
         return Verdict("localization_fault", "heading",
                        ev.detail or "localisation heading drifts against the IMU-integrated "
                        "heading")
     if ch in ("localization", "nis"):
-        if ev.loc_declared_reset:
-            return Verdict("localization_fault", "relocalization",
-                           "localisation relocalised (declared): note only", note=True)
-        if ch == "nis":
-            return Verdict("localization_fault", "inconsistent",
-                           ev.detail or "localisation updates inconsistent with the filter")
-        return Verdict(
-            "localization_fault", "jump",
-            f"localisation jumped {ev.loc_jump:.2f} m against the kinematic prediction"
-            if _fin(ev.loc_jump) else (ev.detail or "localisation jumped"),
-        )
-    # yaw-rate, sideslip and drift channels
+        return _localization(ev)
+    return _motion(ev)  # yaw-rate, sideslip and drift channels
+
+
+def _wheel_slip(ev: Evidence) -> Verdict:
+    front = abs(_z(ev.slip_front)) >= abs(_z(ev.slip_rear))
+    kappa = _z(ev.slip_front) if front else _z(ev.slip_rear)
+    axle = "front" if front else "rear"
+    what = "wheel spin" if kappa > 0 else "wheel lock"
+    return Verdict("longitudinal_slip", what,
+                   f"{what} on the {axle} axle: slip ratio {kappa:+.2f}")
+
+
+def _wheel_scale(ev: Evidence) -> Verdict:
+    k = _nanmean(ev.slip_front, ev.slip_rear)
+    if _fin(k) and abs(k) > CALIBRATION_MAX_SCALE:
+        # both axles far off the ground speed: the wheels spin or lock together
+        what = "wheel spin" if k > 0 else "wheel lock"
+        return Verdict("longitudinal_slip", what, f"{what} on both axles: slip ratio {k:+.2f}")
+    return Verdict(
+        "calibration_bias", "wheel_radius",
+        f"wheel speeds {abs(k) * 100:.1f} % {'above' if k > 0 else 'below'} ground speed "
+        "on both axles: check wheel radius (run kinematic-monitor calibrate)",
+    )
+
+
+def _localization(ev: Evidence) -> Verdict:
+    if ev.loc_declared_reset:
+        return Verdict("localization_fault", "relocalization",
+                       "localisation relocalised (declared): note only", note=True)
+    if ev.channel == "nis":
+        return Verdict("localization_fault", "inconsistent",
+                       ev.detail or "localisation updates inconsistent with the filter")
+    return Verdict(
+        "localization_fault", "jump",
+        f"localisation jumped {ev.loc_jump:.2f} m against the kinematic prediction"
+        if _fin(ev.loc_jump) else (ev.detail or "localisation jumped"),
+    )
+
+
+def _motion(ev: Evidence) -> Verdict:
     kin = ev.yaw_rate_kin
     imu, loc, sig = ev.yaw_rate_imu, ev.yaw_rate_loc, ev.yaw_rate_sigma
     msig = ev.meas_sigma if _fin(ev.meas_sigma) else sig
@@ -141,7 +154,6 @@ def classify(ev: Evidence) -> Verdict:
     meas = measured_yaw_rate(ev)
     ay = ev.lateral_accel if _fin(ev.lateral_accel) else (
         ev.speed * meas if _fin(ev.speed, meas) else math.nan)
-    g_use = abs(ay) / GRAVITY if _fin(ay) else math.nan
     if _fin(meas, kin, ev.speed, ev.steer, ev.wheelbase) and abs(ev.speed) > 0.1:
         steer_meas = math.atan(meas * ev.wheelbase / ev.speed)
         steer_res = abs(steer_meas - ev.steer)
@@ -156,11 +168,16 @@ def classify(ev: Evidence) -> Verdict:
     if not _fin(meas, kin):
         return Verdict("lateral_slip", "slip", ev.detail or "vehicle motion departs from the "
                        "kinematic prediction")
+    return _lateral(meas, kin, ay, ev.friction_assumed)
+
+
+def _lateral(meas: float, kin: float, ay: float, friction: float) -> Verdict:
+    """Lateral slip: understeer or oversteer (ISO 8855 / SAE J670), on low grip or not."""
     same_sign = meas * kin > 0.0
     under = same_sign and abs(meas) < abs(kin)
     sub = "understeer" if under else "oversteer"
     grip = ""
-    if _fin(ay) and abs(ay) <= kinematic_envelope(ev.friction_assumed):
+    if _fin(ay) and abs(ay) <= kinematic_envelope(friction):
         grip = " on low grip"
     if abs(kin) > 1e-6:
         pct = (abs(meas) - abs(kin)) / abs(kin) * 100.0 if same_sign else -100.0 - abs(
@@ -170,6 +187,7 @@ def classify(ev: Evidence) -> Verdict:
             rel = f"yaw rate {meas:+.3f} rad/s against kinematic {kin:+.3f} rad/s"
     else:
         rel = f"yaw rate {meas:+.3f} rad/s with no kinematic yaw rate"
+    g_use = abs(ay) / GRAVITY if _fin(ay) else math.nan
     at = f" at {g_use:.2f} g" if _fin(g_use) else ""
     return Verdict("lateral_slip", sub, f"{sub}{grip}: {rel}{at}")
 

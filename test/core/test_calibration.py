@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 
 from kinematic_monitor.config import validation
+from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core.calibration import estimate as cal
 from kinematic_monitor.core.samples import ChassisSample, LocalizationSample
 
@@ -370,7 +371,7 @@ def test_joint_state_steering_wheel_angles_match_road_wheel_run() -> None:
     runs = []
     for ratio, recs in ((1.0, records), (15.0, _as_steering_wheel(records, 15.0))):
         samples = _samples(recs, scfg, ratio)
-        m = Monitor(monitor_config(trace.vehicle, {"vehicle.steering_ratio": ratio}))
+        m = Monitor(validate(monitor_config(trace.vehicle, {"vehicle.steering_ratio": ratio})))
         preds = []
         for s in samples:
             m.process(s)

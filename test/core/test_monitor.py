@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 
 from fixtures.drives import Faults, config, drive, run, sine_steer
+from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core import model
 from kinematic_monitor.core.levels import ERROR, OK, STALE, WARN
 from kinematic_monitor.core.monitor import Monitor
@@ -87,7 +88,7 @@ def test_standstill_reports_inactive() -> None:
 
 
 def test_nan_sample_is_counted_not_raised() -> None:
-    m = Monitor(config())
+    m = Monitor(validate(config()))
     m.process(ImuSample(stamp=1.0, yaw_rate=math.nan))
     m.process(LocalizationSample(stamp=math.nan, x=0.0, y=0.0, yaw=0.0))
     m.process(ChassisSample(stamp=1.1))  # no steering at all
@@ -99,7 +100,7 @@ def test_nan_sample_is_counted_not_raised() -> None:
 
 
 def test_out_of_order_sample_rejected() -> None:
-    m = Monitor(config())
+    m = Monitor(validate(config()))
     m.process(ImuSample(stamp=2.0, yaw_rate=0.0))
     m.process(ImuSample(stamp=1.0, yaw_rate=0.0))
     assert m.counters["rejected_out_of_order"] == 1
@@ -202,7 +203,7 @@ def test_simulated_ice_patch_raises_lateral_slip_within_one_second() -> None:
         "noise.localization_yaw_std": od.yaw_std,
         "noise.localization_velocity_std": od.velocity_std,
     })
-    m = Monitor(cfg)
+    m = Monitor(validate(cfg))
     buf = ReorderBuffer(lag=0.05, reset_threshold=1.0)
     for r in sensors.iter_records(series, scfg):
         st = r.stamp_ns * 1e-9
@@ -242,7 +243,7 @@ def test_simulated_ice_patch_raises_lateral_slip_within_one_second() -> None:
 def test_hostile_but_finite_samples_never_raise() -> None:
     # extreme finite values: steering beyond range, reverse, zero covariance, huge rates
     rng = np.random.default_rng(99)
-    m = Monitor(config())
+    m = Monitor(validate(config()))
     t = 10.0
     for _ in range(3000):
         t += float(rng.uniform(0.0, 0.02))
@@ -305,7 +306,7 @@ def test_held_steering_expires_after_the_joint_states_timeout() -> None:
     # steering stops after 1 s; speed-only samples may reuse it for timeouts.joint_states
     # (0.5 s), after which they only update the speed (counted as partial)
     t0 = 1000.0
-    m = Monitor(config())
+    m = Monitor(validate(config()))
     m.process(ChassisSample(t0, steer=0.02))
     for k in range(1, 301):  # 3 s of speed at 100 Hz
         m.process(ChassisSample(t0 + 0.01 * k + 0.005, speed=5.0))
@@ -320,7 +321,7 @@ def test_series_values_carry_the_statuses_levels_and_figures() -> None:
     # (consistency of two read-outs of one state; no outside source involved)
     f = Faults(silent_imu=(5.0, 6.5))
     samples = drive(12.0, lambda t: 12.0, sine_steer(0.05, 4.0), f, seed=5)
-    m = Monitor(config())
+    m = Monitor(validate(config()))
     seen_stale = False
     for i, s in enumerate(samples):
         m.process(s)
@@ -350,8 +351,8 @@ def test_stamp_no_message_can_carry_is_rejected_and_counted() -> None:
     from kinematic_monitor.core.monitor import Monitor
     from kinematic_monitor.core.samples import ImuSample
 
-    mon = Monitor({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
-                   "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55})
+    mon = Monitor(validate({"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
+                            "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55}))
     for stamp in (1.797693134862316e307, float(2**31), -5.0, 0.0):
         mon.process(ImuSample(stamp, 0.0, 0.0, 0.0))
     assert mon.counters["rejected_bad_stamp"] == 4

@@ -26,6 +26,7 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from kinematic_monitor.config import validation
+from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core import ordering
 from kinematic_monitor.core.monitor import Monitor
 from kinematic_monitor.core.samples import (
@@ -97,7 +98,7 @@ def _healthy(mon: Monitor) -> None:
 @SETTINGS
 @given(seq=sample_sequences())
 def test_any_finite_sequence_keeps_state_finite_and_covariance_spd(seq: list[Any]) -> None:
-    mon = Monitor(CFG)
+    mon = Monitor(validate(CFG))
     for s in seq:
         mon.process(s)
         _healthy(mon)
@@ -151,7 +152,7 @@ def test_result_independent_of_arrival_order_within_the_window(
         data: tuple[list[tuple[str, Any]], list[float]], watermark: bool) -> None:
     items, delays = data
     lag = CFG.inputs.reorder_window
-    ref = Monitor(CFG)
+    ref = Monitor(validate(CFG))
     for _, s in items:
         ref.process(s)
     # arrival = stamp + delay (< window): a different delivery order across streams; with
@@ -167,7 +168,7 @@ def test_result_independent_of_arrival_order_within_the_window(
         lag, reset_threshold=max(1.0, 2.0 * lag + 0.5), watermark=watermark,
         stream_timeouts={"joint_states": to.joint_states, "localization": to.localization,
                          "imu": to.imu}, default_timeout=1.0)
-    mon = Monitor(CFG)
+    mon = Monitor(validate(CFG))
     for i in order:
         name, s = items[i]
         for out in buf.push(s, name):
@@ -279,7 +280,7 @@ def test_imu_and_gnss_converters_never_raise(stamp: float, q: Any, w: Any, a: An
                     max_size=60))
 def test_monitor_survives_anything_handed_to_it(seq: list[Any]) -> None:
     # garbage handed straight to the core (bypassing the converters): counted, never raised
-    mon = Monitor(CFG)
+    mon = Monitor(validate(CFG))
     for item in seq:
         mon.process(item)
     _healthy(mon)

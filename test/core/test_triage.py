@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 
 from fixtures.drives import Faults, config, drive, run, sine_steer
+from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core import model
 from kinematic_monitor.core.levels import ERROR
 from kinematic_monitor.core.model import GRAVITY
@@ -149,7 +150,7 @@ def test_sequence_relocalisation_declared_on_reset_topic_is_a_note() -> None:
     # same jump as a fault, but announced by the localisation (reset-topic message)
     f = Faults(loc_jump=(6.0, 1.5, -1.0))
     samples = drive(10.0, lambda t: 12.0, lambda t: 0.03, f, seed=12)
-    m = Monitor(config())
+    m = Monitor(validate(config()))
     for s in samples:
         if s.stamp >= 1006.0 and m.counters["relocalizations"] == 0:  # type: ignore[attr-defined]
             m.declare_relocalization(1005.99)
