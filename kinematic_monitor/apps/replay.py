@@ -516,80 +516,6 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
 DIAGNOSTICS_TOPIC = "/diagnostics"
 PREDICTION_TOPIC = "/kinematic_monitor/prediction"
 EVENTS_TOPIC = "/kinematic_monitor/events"
-HARDWARE_ID = "kinematic_monitor"
-
-
-class _AnnotationMessages:
-    """Builds the node's output messages with a rosbags typestore (DESIGN.md section 3)."""
-
-    def __init__(self) -> None:
-        from rosbags.typesys import Stores, get_typestore
-
-        self.store = get_typestore(Stores.ROS2_JAZZY)
-        self.t = self.store.types
-
-    def _header(self, stamp: float, frame_id: str) -> Any:
-        t = self.t
-        ns = int(round(stamp * 1e9))
-        return t["std_msgs/msg/Header"](
-            stamp=t["builtin_interfaces/msg/Time"](sec=ns // 1_000_000_000,
-                                                   nanosec=ns % 1_000_000_000),
-            frame_id=frame_id)
-
-    def _status(self, level: int, name: str, message: str, values: Mapping[str, Any]) -> Any:
-        t = self.t
-        kv = t["diagnostic_msgs/msg/KeyValue"]
-        return t["diagnostic_msgs/msg/DiagnosticStatus"](
-            level=int(level), name=name, message=message, hardware_id=HARDWARE_ID,
-            values=[kv(key=str(k), value=str(v)) for k, v in values.items()])
-
-    def diagnostics(self, stamp: float, statuses: list[Any]) -> bytes:
-        msgtype = "diagnostic_msgs/msg/DiagnosticArray"
-        msg = self.t[msgtype](header=self._header(stamp, ""), status=[
-            self._status(st.level, st.name, st.message, st.values or {}) for st in statuses])
-        return bytes(self.store.serialize_cdr(msg, msgtype))
-
-    def event(self, kind: str, d: Mapping[str, Any], level: int) -> tuple[float, bytes]:
-        """DiagnosticStatus for an event start or end (``d``: the events.json record)."""
-        import json as _json
-
-        start = kind == "start"
-        stamp = d["detected_at"] if start else d["end"]
-        values = {k: (_json.dumps(v) if isinstance(v, dict | list) or v is None else v)
-                  for k, v in d.items() if k != "summary"}
-        values["type"] = kind
-        status = self._status(level if start else 0, f"kinematic_monitor: event {d['kind']}",
-                              f"{kind}: {d['summary']}", values)
-        return (math.nan if stamp is None else float(stamp)), bytes(self.store.serialize_cdr(
-            status, "diagnostic_msgs/msg/DiagnosticStatus"))
-
-    def prediction(self, pred: Any) -> bytes:
-        import numpy as np
-
-        from kinematic_monitor.core.geometry import yaw_to_quaternion
-
-        t = self.t
-        qx, qy, qz, qw = yaw_to_quaternion(pred.yaw)
-        cov = np.zeros(36)
-        pc = list(pred.pose_cov) if len(pred.pose_cov) == 9 else [0.0] * 9
-        for i, ii in enumerate((0, 1, 5)):  # (x, y, yaw) -> 6x6 (x y z roll pitch yaw)
-            for j, jj in enumerate((0, 1, 5)):
-                cov[ii * 6 + jj] = pc[i * 3 + j]
-        v3 = t["geometry_msgs/msg/Vector3"]
-        msgtype = "nav_msgs/msg/Odometry"
-        msg = t[msgtype](
-            header=self._header(pred.stamp, pred.frame_id),
-            child_frame_id="base_link",
-            pose=t["geometry_msgs/msg/PoseWithCovariance"](
-                pose=t["geometry_msgs/msg/Pose"](
-                    position=t["geometry_msgs/msg/Point"](x=pred.x, y=pred.y, z=0.0),
-                    orientation=t["geometry_msgs/msg/Quaternion"](x=qx, y=qy, z=qz, w=qw)),
-                covariance=cov),
-            twist=t["geometry_msgs/msg/TwistWithCovariance"](
-                twist=t["geometry_msgs/msg/Twist"](linear=v3(x=pred.v, y=0.0, z=0.0),
-                                                   angular=v3(x=0.0, y=0.0, z=pred.yaw_rate)),
-                covariance=np.zeros(36)))
-        return bytes(self.store.serialize_cdr(msg, msgtype))
 
 
 def _copy_connection(writer: Any, c: Any, store: Any) -> Any:
@@ -615,22 +541,27 @@ def _write_annotated_bag(source: Any, path: Path,
     import heapq
 
     from rosbags.rosbag2 import Reader, StoragePlugin, Writer
+    from rosbags.typesys import Stores, get_typestore
 
-    build = _AnnotationMessages()
+    from kinematic_monitor.io import outgoing
+
+    store = get_typestore(Stores.ROS2_JAZZY)  # message definitions of the added topics
     added: list[tuple[int, str, bytes]] = []  # (log time ns, topic, cdr)
     for stamp, statuses, pred in rows:
-        # DESIGN.md section 3: /diagnostics at >= 1 Hz and at once on a level change
-        # (the recorder kept statuses exactly at those moments)
+        # /diagnostics at >= 1 Hz and at once on a level change (the recorder kept
+        # statuses exactly at those moments), as the node publishes it
         if statuses is not None:
-            added.append((int(round(stamp * 1e9)), DIAGNOSTICS_TOPIC,
-                          build.diagnostics(stamp, statuses)))
+            ns = int(round(stamp * 1e9))
+            added.append((ns, DIAGNOSTICS_TOPIC, outgoing.diagnostics(
+                *divmod(ns, 1_000_000_000), statuses)))
         if pred is not None:
             added.append((int(round(pred.stamp * 1e9)), PREDICTION_TOPIC,
-                          build.prediction(pred)))
+                          outgoing.prediction(pred, pred.frame_id)))
     for kind, record, level in transitions:
-        stamp, data = build.event(kind, record, level)
+        stamp = outgoing.event_stamp(kind, record)
         if math.isfinite(stamp):
-            added.append((int(round(stamp * 1e9)), EVENTS_TOPIC, data))
+            added.append((int(round(stamp * 1e9)), EVENTS_TOPIC,
+                          outgoing.event_status(kind, record, level)))
     added.sort(key=lambda r: r[0])
 
     notes: list[str] = []
@@ -643,14 +574,14 @@ def _write_annotated_bag(source: Any, path: Path,
         for topic, msgtype in ((DIAGNOSTICS_TOPIC, "diagnostic_msgs/msg/DiagnosticArray"),
                                (PREDICTION_TOPIC, "nav_msgs/msg/Odometry"),
                                (EVENTS_TOPIC, "diagnostic_msgs/msg/DiagnosticStatus")):
-            conns[topic] = writer.add_connection(topic, msgtype, typestore=build.store)
+            conns[topic] = writer.add_connection(topic, msgtype, typestore=store)
 
         def original() -> Iterator[tuple[int, str, bytes]]:
             try:
                 with Reader(source.path) as reader:
                     for c in reader.connections:
                         if c.topic not in conns:
-                            conns[c.topic] = _copy_connection(writer, c, build.store)
+                            conns[c.topic] = _copy_connection(writer, c, store)
                     for c, ts, raw in reader.messages():
                         yield ts, c.topic, bytes(raw)
             except Exception as exc:  # noqa: BLE001 - damaged input: copy what was readable

@@ -20,17 +20,24 @@ import multiprocessing
 import os
 import pickle
 from collections.abc import Callable, Iterator
+from multiprocessing.connection import Connection
 from typing import Any
 
-from kinematic_monitor.core.samples import ChassisSample, GnssSample, ImuSample, LocalizationSample
+from kinematic_monitor.core.ordering import TimeReset
+from kinematic_monitor.core.samples import (
+    ChassisSample,
+    GnssSample,
+    ImuSample,
+    LocalizationSample,
+    Sample,
+)
+from kinematic_monitor.io.sources import BOOKKEEPING, Progress, SampleSource
 
 # sample classes sent as field tuples: (kind, field, field, ...), kind = index here
 SAMPLE_CLASSES: tuple[type, ...] = (ImuSample, ChassisSample, LocalizationSample, GnssSample)
 OTHER = -1  # anything else: (OTHER, pickle bytes)
 BATCH = 1024  # samples per pipe message
 MIN_MESSAGES = 20_000  # below this the fork costs more than it saves (auto mode)
-# what the child reports back: the attributes iter_samples changes on the source
-BOOKKEEPING = ("position", "stats", "damage", "out_of_order", "time_jumps", "warnings")
 
 _TAG_BATCH, _TAG_PICKLED, _TAG_END, _TAG_ERROR = b"B", b"P", b"E", b"X"
 
@@ -111,7 +118,7 @@ def _maker(cls: type) -> Callable[[tuple[Any, ...]], Any]:
     return env["make"]  # type: ignore[no-any-return]
 
 
-def _child(source: Any, conn: Any) -> None:
+def _child(source: SampleSource, conn: Connection) -> None:
     """Child process: read every sample, send batches, then the bookkeeping."""
     from operator import attrgetter
 
@@ -150,8 +157,8 @@ def _child(source: Any, conn: Any) -> None:
         conn.close()
 
 
-def iter_samples(source: Any, progress: Callable[[int, int], None] | None = None,
-                 progress_every: int = 5000) -> Iterator[Any]:
+def iter_samples(source: SampleSource, progress: Progress | None = None,
+                 progress_every: int = 5000) -> Iterator[Sample | TimeReset]:
     """``source.iter_samples(progress, progress_every)`` with the reading done in a child.
 
     Yields the same samples in the same order; afterwards ``source`` carries the child's
@@ -165,7 +172,7 @@ def iter_samples(source: Any, progress: Callable[[int, int], None] | None = None
     proc.start()
     send_end.close()
     makers = [_maker(cls) for cls in SAMPLE_CLASSES]
-    total = int(getattr(source, "message_count", 0) or 0)
+    total = source.message_count
     next_report = progress_every
     loads = marshal.loads
     finished = False
