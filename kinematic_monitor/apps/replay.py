@@ -28,8 +28,11 @@ from kinematic_monitor.apps.cli import (
     load_config,
     progress_wanted,
 )
-from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
+from kinematic_monitor.config.validation import MonitorConfig
+from kinematic_monitor.core.ordering import TimeReset
+from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample, Sample
 from kinematic_monitor.io.outputs import OutputDir, OutputDirError
+from kinematic_monitor.io.sources import SampleSource
 from kinematic_monitor.io.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter
 
 HELP = "Run the monitor over a recorded rosbag2 folder and write events, time series and report."
@@ -337,7 +340,7 @@ def _thresholds(config: Any, channels: list[str]) -> dict[str, list[tuple[str, f
     return out
 
 
-def _open_bag(path: str, config: Any) -> Any:
+def _open_bag(path: str, config: MonitorConfig) -> SampleSource:
     from kinematic_monitor.io import bag
 
     p = Path(path)
@@ -349,14 +352,15 @@ def _open_bag(path: str, config: Any) -> Any:
         raise UsageError(f"bag {path!r}: {exc}") from None
 
 
-def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> Iterator[Any]:
+def _iter_with_progress(source: SampleSource, show: bool, read_ahead: bool = False
+                        ) -> Iterator[Sample | TimeReset]:
     """The bag's samples, with a tqdm bar over messages read when ``show``; read and
     decoded in a child process when ``read_ahead`` (see ``readahead``)."""
     if read_ahead:
         from kinematic_monitor.io import readahead
 
-        samples: Callable[..., Iterator[Any]] = functools.partial(readahead.iter_samples,
-                                                                  source)
+        samples: Callable[..., Iterator[Sample | TimeReset]] = functools.partial(
+            readahead.iter_samples, source)
     else:
         samples = source.iter_samples
     if not show:
@@ -368,7 +372,7 @@ def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> It
         # no tqdm monitor thread: the read-ahead forks, and a fork should not copy a
         # process that runs other threads
         tqdm.monitor_interval = 0
-    total = int(getattr(source, "message_count", 0)) or None
+    total = source.message_count or None
     bar = tqdm(total=total, unit="msg", unit_scale=True, desc="replay", file=sys.stderr,
                mininterval=0.5)
     done = [0]
@@ -383,33 +387,33 @@ def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> It
         bar.close()
 
 
-def _lost_data(source: Any) -> list[str]:
+def _lost_data(source: SampleSource) -> list[str]:
     """Plain sentences on what the bag reader could not read or had to drop."""
     out: list[str] = []
-    damage = getattr(source, "damage", None)
-    if damage is not None:
-        summary = getattr(damage, "summary", None)
-        out.append(summary() if callable(summary) else str(damage))
-    for w in getattr(source, "warnings", None) or ():
-        out.append(str(w))
-    late = int(getattr(source, "out_of_order", 0) or 0)
+    if source.damage is not None:
+        out.append(source.damage.summary())
+    out.extend(source.warnings)
+    late = source.out_of_order
     if late:
-        out.append(f"{late} message(s) arrived too late to be used in stamp order (dropped)")
-    jumps = int(getattr(source, "time_jumps", 0) or 0)
+        where = ", ".join(f"{topic}: {st.rejected['out_of_order']}"
+                          for topic, st in source.stats.items() if st.rejected["out_of_order"])
+        out.append(f"{late} message(s) arrived too late to be used in stamp order (dropped; "
+                   f"{where})")
+    jumps = source.time_jumps
     if jumps:
         out.append(f"header-stamp time jumped backwards {jumps} time(s); the monitor was "
                    "reset at each jump")
     return out
 
 
-def _counters(monitor: Any, source: Any) -> dict[str, int]:
+def _counters(monitor: Any, source: SampleSource) -> dict[str, int]:
     """Rejections and drops: per topic and reason from the bag, and the monitor's counters."""
     out: dict[str, int] = {}
-    for topic, st in (getattr(source, "stats", None) or {}).items():
-        for reason, n in getattr(st, "rejected", {}).items():
+    for topic, st in source.stats.items():
+        for reason, n in st.rejected.items():
             if n and reason != "out_of_order":
                 out[f"{topic} rejected ({reason})"] = int(n)
-    counters = getattr(monitor, "counters", None)
+    counters = monitor.counters
     if isinstance(counters, Mapping):
         for k, v in counters.items():
             lost = k.startswith("rejected") or k in ("filter_errors", "time_resets")
@@ -440,7 +444,7 @@ def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False
     try:
         from kinematic_monitor.io import readahead
 
-        ahead = readahead.wanted(read_ahead, int(getattr(source, "message_count", 0) or 0))
+        ahead = readahead.wanted(read_ahead, source.message_count)
         result = _run(source, config, outdir, str(bag_path), report=report,
                       write_bag=write_bag, series_interval=series_interval,
                       progress=progress, read_ahead=ahead)
@@ -530,7 +534,7 @@ def _copy_connection(writer: Any, c: Any, store: Any) -> Any:
                                  offered_qos_profiles=qos)
 
 
-def _write_annotated_bag(source: Any, path: Path,
+def _write_annotated_bag(source: SampleSource, path: Path,
                          rows: list[tuple[float, list[Any] | None, Any]],
                          transitions: list[tuple[str, dict[str, Any], int]]) -> list[str]:
     """Copy the input bag into ``path`` (same storage) with the monitor's outputs added.
@@ -565,8 +569,7 @@ def _write_annotated_bag(source: Any, path: Path,
     added.sort(key=lambda r: r[0])
 
     notes: list[str] = []
-    plugin = StoragePlugin.MCAP if getattr(source, "storage", "") == "mcap" else (
-        StoragePlugin.SQLITE3)
+    plugin = StoragePlugin.MCAP if source.storage == "mcap" else StoragePlugin.SQLITE3
     writer = Writer(path, version=9, storage_plugin=plugin)
     writer.open()
     try:

@@ -50,7 +50,8 @@ REGULARITY = 1.5  # largest / smallest gap in the window of a regular stream
 
 
 class _Stamped(Protocol):
-    stamp: float
+    @property
+    def stamp(self) -> float: ...
 
 
 #: stream names of the configured inputs (single-value inputs are named by their roles,

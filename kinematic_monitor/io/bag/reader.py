@@ -6,12 +6,13 @@
 bytes become samples through the one decoder per type (:mod:`kinematic_monitor.io.decode`);
 rejected messages are counted per topic and reason in :attr:`BagSource.stats`.
 
-Ordering: a bag lists messages in receive (log) time order; header stamps of each topic
-are nearly in that order. Samples wait in a heap keyed by header stamp until the log
-clock has moved ``reorder_window`` seconds past their own log time, then leave in stamp
-order. A sample that would still go backwards is dropped and counted ('out_of_order');
-a stamp more than ``reset_threshold`` behind the newest one starts a new timeline
-(buffer flushed, counted in ``time_jumps``).
+Ordering: a bag lists messages in receive (log) time order, the order in which the live
+node would have received them; they go through the node's own reorder buffer
+(``core.ordering.input_buffer``, configured from the same parameters), so replay gives the
+monitor exactly the stream the node would: samples in header-stamp order, a ``TimeReset``
+marker where the stamps jump back (a new timeline, counted in ``time_jumps``). A sample too
+late for stamp order is dropped and counted ('out_of_order'), a repeated one too
+('duplicate').
 
 Damage: a bag whose storage file is cut short or corrupt is read up to the damage by the
 salvage back-end of its storage (:mod:`kinematic_monitor.io.bag.storage`); the loss is
@@ -21,7 +22,6 @@ read, last good stamp) instead of raising.
 
 from __future__ import annotations
 
-import heapq
 import math
 import os
 from collections.abc import Callable, Iterator, Mapping
@@ -29,11 +29,12 @@ from pathlib import Path
 from typing import Any
 
 from kinematic_monitor.config.validation import MonitorConfig
+from kinematic_monitor.core import ordering
 from kinematic_monitor.core.ordering import TimeReset
 from kinematic_monitor.core.samples import Sample
 from kinematic_monitor.io import decode
 from kinematic_monitor.io.bag.errors import BagError
-from kinematic_monitor.io.bag.inputs import BagInputs, check_topics, inputs_from_config
+from kinematic_monitor.io.bag.inputs import as_config, check_topics, inputs_from_config
 from kinematic_monitor.io.bag.storage import (
     SALVAGE,
     RawRecord,
@@ -63,18 +64,10 @@ class BagSource:
     the bag read cleanly), ``out_of_order`` and ``time_jumps`` counts.
     """
 
-    def __init__(
-        self,
-        path: str | os.PathLike[str],
-        inputs: BagInputs,
-        *,
-        reorder_window: float = 0.5,
-        reset_threshold: float = 5.0,
-    ) -> None:
+    def __init__(self, path: str | os.PathLike[str], config: MonitorConfig) -> None:
         self.path = Path(path)
-        self.inputs = inputs
-        self.reorder_window = float(reorder_window)
-        self.reset_threshold = float(reset_threshold)
+        self.config = config
+        self.inputs = inputs = inputs_from_config(config)
         self.warnings: list[str] = []
         self.damage: BagDamage | None = None
         self.out_of_order = 0
@@ -230,20 +223,16 @@ class BagSource:
         receive_stamped = {t for t, ins in self.scalar_inputs.items()
                            if ins[0].receive_time_stamped}
         stats = self.stats
-        window_ns = int(self.reorder_window * 1e9)
-        jump = self.reset_threshold
-        heap: list[tuple[float, int, int, str, Sample]] = []
-        push, pop = heapq.heappush, heapq.heappop
-        seq = 0
-        newest = -math.inf
-        last_out = -math.inf
+        buf = ordering.input_buffer(self.config)
+        push = buf.push
         err: list[str] = []
-        # topic -> (stats, decoder of the bytes or None, receive-time stamped)
-        table = {t: (stats[t], decoders.get(t), t in receive_stamped) for t in stats}
+        # topic -> (stats, decoder of the bytes or None, receive-time stamped, stream name)
+        table = {t: (stats[t], decoders.get(t), t in receive_stamped, self._used[t][0])
+                 for t in stats}
         rejected = Rejected
         for topic, log_ns, data in self._raw(err):
             self.position += 1
-            st, fn, rstamped = table[topic]
+            st, fn, rstamped, stream = table[topic]
             st.read += 1
             if progress is not None and self.position % progress_every == 0:
                 progress(self.position, self.message_count)
@@ -254,32 +243,22 @@ class BagSource:
             st.accepted += 1
             if rstamped:
                 st.receive_time_stamped += 1
-            stamp = got.stamp
-            if stamp < newest - jump:
-                # a new timeline (bag restarted, simulated time reset): release the old one
-                self.time_jumps += 1
-                while heap:
-                    yield pop(heap)[4]
-                newest = last_out = -math.inf
-            if stamp > newest:
-                newest = stamp
-            seq += 1
-            push(heap, (stamp, seq, log_ns, topic, got))
-            release = log_ns - window_ns
-            while heap and heap[0][2] <= release:
-                s, _, _, t, sample = pop(heap)
-                if s < last_out:
-                    self._late(t)
-                    continue
-                last_out = s
-                yield sample
-        while heap:
-            s, _, _, t, sample = pop(heap)
-            if s < last_out:
-                self._late(t)
-                continue
-            last_out = s
-            yield sample
+            late, repeated = buf.late_dropped, buf.duplicates
+            released = push(got, stream)
+            if buf.late_dropped != late or buf.duplicates != repeated:
+                # dropped at once by the buffer: it is this sample
+                st.accepted -= 1
+                if buf.late_dropped != late:
+                    self.out_of_order += 1
+                    st.rejected["out_of_order"] += 1
+                else:
+                    st.rejected["duplicate"] += 1
+            if released:
+                self.time_jumps = buf.resets
+                yield from released
+        yield from buf.flush()
+        self.time_jumps = buf.resets
+        last_out = buf.last_released
         if progress is not None:
             progress(self.position, self.message_count)
         errors = [e for e in err if e]
@@ -291,12 +270,6 @@ class BagSource:
                 last_good_stamp=last_out if last_out > -math.inf else math.nan,
                 recovered_with="rosbags reader" if self._reader is not None else "salvage scan",
             )
-
-    def _late(self, topic: str) -> None:
-        self.out_of_order += 1
-        st = self.stats[topic]
-        st.accepted -= 1
-        st.rejected["out_of_order"] += 1
 
     # -- life cycle -----------------------------------------------------------------------
 
@@ -313,24 +286,13 @@ class BagSource:
         self.close()
 
 
-def open_bag(
-    path: str | os.PathLike[str],
-    config: MonitorConfig | Mapping[str, Any] | None = None,
-    *,
-    reorder_window: float = 0.5,
-    reset_threshold: float = 5.0,
-) -> BagSource:
+def open_bag(path: str | os.PathLike[str],
+             config: MonitorConfig | Mapping[str, Any] | None = None) -> BagSource:
     """Open a rosbag2 folder (or a single .db3/.mcap file) for the configured inputs.
 
     ``config``: a MonitorConfig, a dict of parameters (nested, dotted or in the ROS
-    parameter-file form) or None for the defaults. ``reorder_window`` [s of log time]
-    bounds how long a sample waits for earlier-stamped ones; ``reset_threshold`` [s]
-    is the backwards stamp jump taken as a new timeline. Raises BagError naming the
-    problem (missing needed topic, wrong type, unreadable bag).
+    parameter-file form) or None for the defaults; the inputs and the reorder buffer
+    (``inputs.reorder_window``, ``timeouts.*``) come from it. Raises BagError naming the
+    problem (missing needed topic, wrong type, unreadable bag, bad parameter).
     """
-    return BagSource(
-        path,
-        inputs_from_config(config),
-        reorder_window=reorder_window,
-        reset_threshold=reset_threshold,
-    )
+    return BagSource(path, as_config(config))
