@@ -17,17 +17,19 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Iterable, Mapping, Sequence
-from typing import Any, Protocol
+from collections.abc import Iterable, Mapping
+from typing import TYPE_CHECKING, Any, Protocol
 
 from kinematic_monitor.core.geometry import yaw_to_quaternion
 from kinematic_monitor.io import encode
 
+if TYPE_CHECKING:  # pragma: no cover - typing only (the core's filter estimate)
+    from kinematic_monitor.core.monitor import Prediction
+
 __all__ = [
     "HARDWARE_ID",
     "StatusLike",
-    "PredictionLike",
-    "diagnostics",
+        "diagnostics",
     "prediction",
     "event_status",
     "event_stamp",
@@ -52,26 +54,6 @@ class StatusLike(Protocol):
     def values(self) -> Mapping[str, Any]: ...
 
 
-class PredictionLike(Protocol):
-    """The filter estimate (``core.monitor.Prediction``): pose [m, rad], CG speed [m/s],
-    yaw rate [rad/s], (x, y, yaw) covariance row-major (9 values)."""
-
-    @property
-    def stamp(self) -> float: ...
-    @property
-    def x(self) -> float: ...
-    @property
-    def y(self) -> float: ...
-    @property
-    def yaw(self) -> float: ...
-    @property
-    def v(self) -> float: ...
-    @property
-    def yaw_rate(self) -> float: ...
-    @property
-    def pose_cov(self) -> Sequence[float]: ...
-
-
 def _status(level: int, name: str, message: str, values: Mapping[str, Any]
             ) -> encode.StatusFields:
     return (int(level), name, message, HARDWARE_ID,
@@ -84,7 +66,7 @@ def diagnostics(sec: int, nanosec: int, statuses: Iterable[StatusLike]) -> bytes
         _status(st.level, st.name, st.message, st.values or {}) for st in statuses])
 
 
-def prediction(pred: PredictionLike, frame_id: str) -> bytes:
+def prediction(pred: Prediction, frame_id: str) -> bytes:
     """Odometry of the filter estimate, pose in ``frame_id``, twist in ``base_link``."""
     sec, nanosec = encode.split_stamp(pred.stamp)
     cov = [0.0] * 36

@@ -31,7 +31,7 @@ from kinematic_monitor.core.samples import (
     LocalizationSample,
     Sample,
 )
-from kinematic_monitor.io.sources import BOOKKEEPING, Progress, SampleSource
+from kinematic_monitor.io.sources import Progress, SampleSource
 
 # sample classes sent as field tuples: (kind, field, field, ...), kind = index here
 SAMPLE_CLASSES: tuple[type, ...] = (ImuSample, ChassisSample, LocalizationSample, GnssSample)
@@ -141,7 +141,9 @@ def _child(source: SampleSource, conn: Connection) -> None:
                 send(_encode(source.position, batch, plain))
                 batch, plain = [], True
         send(_encode(source.position, batch, plain))
-        send(_TAG_END + pickle.dumps({a: getattr(source, a) for a in BOOKKEEPING}))
+        send(_TAG_END + pickle.dumps((source.position, source.stats, source.damage,
+                                      source.out_of_order, source.time_jumps,
+                                      source.warnings)))
     except BaseException as exc:  # noqa: BLE001 - every failure goes to the parent
         try:
             payload = pickle.dumps(exc)
@@ -195,8 +197,8 @@ def iter_samples(source: SampleSource, progress: Progress | None = None,
                     next_report = (position // progress_every + 1) * progress_every
             elif tag == _TAG_END:
                 finished = True
-                for name, value in pickle.loads(body).items():
-                    setattr(source, name, value)
+                (source.position, source.stats, source.damage, source.out_of_order,
+                 source.time_jumps, source.warnings) = pickle.loads(body)
                 if progress is not None:
                     progress(source.position, total)
                 return

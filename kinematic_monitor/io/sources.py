@@ -17,7 +17,7 @@ from typing import Protocol
 from kinematic_monitor.core.ordering import TimeReset
 from kinematic_monitor.core.samples import Sample
 
-__all__ = ["TopicStats", "BagDamage", "Progress", "SampleSource", "SampleSink", "BOOKKEEPING"]
+__all__ = ["TopicStats", "BagDamage", "Progress", "SampleSource", "SampleSink"]
 
 #: ``progress(position, message_count)``: messages read so far, of how many
 Progress = Callable[[int, int], None]
@@ -56,11 +56,6 @@ class BagDamage:
             f"bag damaged ({self.error}); read up to stamp {self.last_good_stamp:.3f} s; "
             f"messages read/expected per topic: {lost}"
         )
-
-
-#: the attributes of a SampleSource that ``iter_samples`` changes (the read-ahead child
-#: sends them back to the parent)
-BOOKKEEPING = ("position", "stats", "damage", "out_of_order", "time_jumps", "warnings")
 
 
 class SampleSource(Protocol):
