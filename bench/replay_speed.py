@@ -28,10 +28,12 @@ import tempfile
 import time
 from pathlib import Path
 
-RUN_REPLAY = (
+RUN_REPLAY = (  # the package's command line, in today's layout or an earlier flat one
     "import sys\n"
-    "from kinematic_monitor import cli\n"
-    "cli.SUBCOMMANDS.setdefault('replay', 'kinematic_monitor.apps.replay')\n"
+    "try:\n"
+    "    from kinematic_monitor.apps import cli\n"
+    "except ImportError:\n"
+    "    from kinematic_monitor import cli\n"
     "sys.exit(cli.main(sys.argv[1:]))\n"
 )
 
