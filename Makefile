@@ -34,6 +34,7 @@ lint: $(STAMP)
 
 typecheck: $(STAMP)
 	$(VENV)/bin/mypy
+	$(VENV)/bin/mypy --strict --follow-imports=silent kinematic_monitor/io  # io/: strict
 
 test: $(STAMP) lint typecheck
 	$(PY) -m pytest --cov=kinematic_monitor --cov-report=term $(PYTEST_ARGS)

@@ -4,7 +4,7 @@ Usage: python bench/bag_read.py [--minutes 10] [--keep DIR] [BAG ...]
 
 Without BAG arguments it writes a bag with JointState 100 Hz (6 joints), Imu 200 Hz and
 Odometry 50 Hz (10 minutes: 210 000 messages) in both storages, then prints for each:
-raw records only; raw + rosbags typestore deserialise; raw + our cdr field decoders;
+raw records only; raw + rosbags typestore deserialise; raw + our decoders (io.decode);
 kinematic_monitor.io.bag.iter_samples() (decode + validate + samples + stamp ordering).
 """
 
@@ -21,8 +21,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from rosbags.rosbag2 import Reader, StoragePlugin, Writer  # noqa: E402
 from rosbags.typesys import Stores, get_typestore  # noqa: E402
 
-from kinematic_monitor.io import cdr  # noqa: E402
+from kinematic_monitor.io import decode  # noqa: E402
 from kinematic_monitor.io.bag import open_bag  # noqa: E402
+from kinematic_monitor.io.convert import JointMap  # noqa: E402
 
 TS = get_typestore(Stores.ROS2_HUMBLE)
 TOPICS = {
@@ -71,11 +72,16 @@ def raw_deserialise(path: Path) -> int:
     return n
 
 
-def raw_cdr(path: Path) -> int:
+def raw_decode(path: Path) -> int:
+    from kinematic_monitor.io.bag import inputs_from_config
+
+    inp = inputs_from_config(None)
+    jmap = JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints)
+    decoders = {t: decode.decoder_for(t, jmap) for t in decode.DECODED_TYPES}
     n = 0
     with Reader(path) as r:
         for conn, _, data in r.messages():
-            cdr.DECODERS[conn.msgtype](data)
+            decoders[conn.msgtype](data)
             n += 1
     return n
 
@@ -115,7 +121,7 @@ def main() -> None:
                 for name, fn in (
                     ("raw read", raw_only),
                     ("raw + rosbags deserialise", raw_deserialise),
-                    ("raw + kinematic_monitor.io.cdr", raw_cdr),
+                    ("raw + kinematic_monitor.io.decode", raw_decode),
                     ("kinematic_monitor iter_samples", ours),
                 ):
                     t = time.perf_counter()

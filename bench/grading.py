@@ -3,7 +3,8 @@
 Scoring against truth (matching and must-detect rules) is ``kinematic_monitor.sim.scoring``.
 
 Pipeline (the one replay uses): a ``TrueTrace`` -> simulated sensors (``SensorConfig``
-defaults, i.e. the stated noise levels) -> faults -> message records -> ``convert.*`` ->
+defaults, i.e. the stated noise levels) -> faults -> message records -> CDR bytes
+(``sim.bagout.record_cdr``, the one encoder) -> the one decoder per type (``io.decode``) ->
 samples in header-stamp order -> :class:`~kinematic_monitor.core.monitor.Monitor` configured
 with the vehicle's own parameters (``sim.bagout.vehicle_params``) merged into the
 parameter defaults. See :func:`samples_from_records` and :func:`run_case`.
@@ -21,6 +22,7 @@ fixed threshold held ``min_duration``; every alarm is reported as ``lateral_slip
 
 from __future__ import annotations
 
+import functools
 import math
 import statistics
 from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -31,7 +33,8 @@ from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core import model
 from kinematic_monitor.core.events import Event
 from kinematic_monitor.core.samples import ChassisSample, ImuSample
-from kinematic_monitor.io import convert
+from kinematic_monitor.io import convert, decode
+from kinematic_monitor.sim.bagout import record_cdr
 from kinematic_monitor.sim.scoring import (  # noqa: F401 - re-exported for the bench
     EPOCH,
     FAULT_KINDS,
@@ -55,22 +58,21 @@ def joint_map(sensor_config: Any) -> convert.JointMap:
     return convert.JointMap(js.steer_joints, js.wheel_joints[:2], js.wheel_joints[2:])
 
 
+@functools.lru_cache(maxsize=8)
+def _joint_state_decoder(jmap: convert.JointMap) -> decode.Decoder:
+    return decode.joint_state_decoder(jmap)
+
+
+_DECODERS: dict[str, decode.Decoder] = {"odometry": decode.odometry, "imu": decode.imu}
+
+
 def sample_from_record(r: Any, jmap: convert.JointMap) -> Any:
-    """One ``sim.sensors`` record to a sample (or a ``convert.Rejected``, or None for GNSS)."""
-    st = r.stamp_ns * 1e-9
-    key = r.key
-    if key == "joint_states":
-        return convert.chassis_from_joint_state(st, r.name, r.position, r.velocity, jmap)
-    if key == "odometry":
-        return convert.localization_from_odometry(
-            st, r.frame_id, r.position, r.orientation, r.pose_covariance, r.linear,
-            r.angular, r.twist_covariance)
-    if key == "imu":
-        return convert.imu_from_fields(
-            st, r.orientation, r.orientation_covariance, r.angular_velocity,
-            r.angular_velocity_covariance, r.linear_acceleration,
-            r.linear_acceleration_covariance)
-    return None
+    """One ``sim.sensors`` record to a sample (or a ``convert.Rejected``, or None for GNSS),
+    through the bytes a bag would hold: encoded, then decoded as replay and the node do."""
+    if r.key == "joint_states":
+        return _joint_state_decoder(jmap)(record_cdr(r))
+    fn = _DECODERS.get(r.key)
+    return None if fn is None else fn(record_cdr(r))
 
 
 def samples_from_records(records: Iterable[Any], sensor_config: Any,

@@ -1,15 +1,15 @@
 """Load bench for the live node: separate publisher and node processes over DDS (localhost).
 
-For each (executor, message mode, rates) case it prints: messages published and received,
+For each (executor, rates) case it prints: messages published and received,
 samples dropped for lateness by the reorder buffer, receive and processed latency (wall time
 - header stamp, median and 99th percentile; "processed" includes the reorder window), and
 the node's CPU use from /proc/<pid>/stat. Then, in this same process, the core's per-sample cost
 (Monitor.process over a recorded-like mix) beside a bare filterpy EKF step, as a ratio.
 
 Compare figures within one run only (shared, noisy machine; see PERF_NOTES.md).
-Message mode: ``raw`` = serialized bytes decoded by kinematic_monitor.io.fastpath, ``typed`` =
-rclpy message objects (KINEMATIC_MONITOR_MESSAGES); both are run in the same invocation.
-``--floor`` adds a node that only counts the same messages (the executor + DDS floor).
+The node takes its inputs as serialized bytes decoded by kinematic_monitor.io.decode.
+``--floor`` adds a node that only counts the same messages (the executor + DDS floor; raw
+bytes and rclpy message objects).
 Usage: python bench/node_load.py [--quick] [--repeat N] [--nominal-only] [--floor]
 """
 
@@ -47,12 +47,10 @@ PARAMS_EXTRA = """\
 """
 
 
-def run_case(executor: str, js: float, imu: float, odom: float, duration: float,
-             messages: str = "raw") -> dict:
+def run_case(executor: str, js: float, imu: float, odom: float, duration: float) -> dict:
     work = Path(tmpdir())
     domain = new_domain_id()
     params = write_params(work / "p.yaml", extra=PARAMS_EXTRA)
-    os.environ["KINEMATIC_MONITOR_MESSAGES"] = messages  # start_node copies os.environ
     node = start_node(params, domain, work, executor=executor)
     lis = Listener(domain)
     try:
@@ -78,7 +76,7 @@ def run_case(executor: str, js: float, imu: float, odom: float, duration: float,
         lis.close()
     received = sum(int(v) for k, v in status.items() if k.startswith("received."))
     return {
-        "executor": executor, "messages": messages, "rates": f"{js:g}/{imu:g}/{odom:g} Hz",
+        "executor": executor, "rates": f"{js:g}/{imu:g}/{odom:g} Hz",
         "cpu_pct": 100.0 * (c1 - c0) / (t1 - t0),
         "published": published, "received": received,
         "late_dropped": status.get("late_dropped", "?"),
@@ -231,40 +229,35 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="shorter runs, events executor only")
     ap.add_argument("--repeat", type=int, default=1,
-                    help="run each nominal-rate case N times, alternating raw and typed")
+                    help="run each nominal-rate case N times")
     ap.add_argument("--nominal-only", action="store_true", help="only 100/200/50 Hz cases")
     ap.add_argument("--floor", action="store_true",
                     help="also measure a node that only counts the messages (the floor)")
     a = ap.parse_args()
     os.environ["ROS_AUTOMATIC_DISCOVERY_RANGE"] = "LOCALHOST"
     duration = 5.0 if a.quick else 8.0
-    cases: list[tuple[str, str, int, int, int]] = []
+    cases: list[tuple[str, int, int, int]] = []
     if not a.nominal_only:
-        cases += [("events", m, 1000, 400, 100) for m in ("raw", "typed")]
+        cases.append(("events", 1000, 400, 100))
     for _ in range(max(1, a.repeat)):
-        cases += [("events", m, 100, 200, 50) for m in ("raw", "typed")]
+        cases.append(("events", 100, 200, 50))
     if not a.quick:
-        cases += [("single", m, 100, 200, 50) for m in ("raw", "typed")]
+        cases.append(("single", 100, 200, 50))
     print("JointState/Imu/Odometry rates; latency = wall time - header stamp at reception (rx)"
           " and after the reorder window (processed)")
-    hdr = (f"{'executor':8} {'msgs':5} {'rates':>18} {'cpu %':>6} {'recv':>6} {'late':>5} "
+    hdr = (f"{'executor':8} {'rates':>18} {'cpu %':>6} {'recv':>6} {'late':>5} "
            f"{'rx p50':>7} {'rx p99':>7} {'p50 ms':>7} {'p99 ms':>7} {'errs':>4}  published")
     print(hdr)
-    cpu: dict[tuple[str, str, str], list[float]] = {}
-    for ex, mode, js, imu, odom in cases:
-        r = run_case(ex, js, imu, odom, duration, mode)
-        cpu.setdefault((ex, mode, r["rates"]), []).append(r["cpu_pct"])
-        print(f"{r['executor']:8} {mode:5} {r['rates']:>18} {r['cpu_pct']:6.1f} "
+    cpu: dict[tuple[str, str], list[float]] = {}
+    for ex, js, imu, odom in cases:
+        r = run_case(ex, js, imu, odom, duration)
+        cpu.setdefault((ex, r["rates"]), []).append(r["cpu_pct"])
+        print(f"{r['executor']:8} {r['rates']:>18} {r['cpu_pct']:6.1f} "
               f"{r['received']:6d} {r['late_dropped']:>5} {r['rx_p50']:>7} {r['rx_p99']:>7} "
               f"{r['p50']:>7} {r['p99']:>7} {r['errors']:>4}  {r['published']}", flush=True)
-    for (ex, mode, rates), vals in sorted(cpu.items()):
-        if mode != "raw":
-            continue
-        typed = cpu.get((ex, "typed", rates))
-        if typed:
-            med_r, med_t = sorted(vals)[len(vals) // 2], sorted(typed)[len(typed) // 2]
-            print(f"{ex} {rates}: raw {med_r:.1f} % vs typed {med_t:.1f} % of a core "
-                  f"(median of {len(vals)}; raw/typed = {med_r / max(med_t, 1e-9):.2f})")
+    for (ex, rates), vals in sorted(cpu.items()):
+        print(f"{ex} {rates}: median {sorted(vals)[len(vals) // 2]:.1f} % of a core "
+              f"(of {len(vals)})")
     if a.floor:
         for mode in ("raw", "typed") * max(1, a.repeat):
             pct = run_floor(mode, 100, 200, 50, duration)

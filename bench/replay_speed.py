@@ -1,8 +1,8 @@
 """Replay speed, measured side by side in one run on a simulated 10-minute drive.
 
 Prints: bare rosbags read + deserialise of every message; our bag reader alone
-(``bag.iter_samples``); the fused decoder (``fastpath``) beside the two-step cdr + convert
-path per message type; the whole ``kinematic-monitor replay --no-report`` command as a
+(``bag.iter_samples``); the one decoder per type (``io.decode``) beside rosbags'
+deserialiser per message type; the whole ``kinematic-monitor replay --no-report`` command as a
 subprocess (start-up included), by default (read-ahead on a machine with two or more
 cores) and with ``--read-ahead off``; the report generation alone; and the ratios against
 the targets (replay <= 2x the bare read, >= 100x real time, report <= 5 s).
@@ -28,10 +28,12 @@ import tempfile
 import time
 from pathlib import Path
 
-RUN_REPLAY = (
+RUN_REPLAY = (  # the package's command line, in today's layout or an earlier flat one
     "import sys\n"
-    "from kinematic_monitor import cli\n"
-    "cli.SUBCOMMANDS.setdefault('replay', 'kinematic_monitor.apps.replay')\n"
+    "try:\n"
+    "    from kinematic_monitor.apps import cli\n"
+    "except ImportError:\n"
+    "    from kinematic_monitor import cli\n"
     "sys.exit(cli.main(sys.argv[1:]))\n"
 )
 
@@ -75,59 +77,40 @@ def our_reader(bag: Path, params: Path) -> tuple[float, float, int]:
 
 
 def decode_compare(bag: Path, params: Path, reps: int = 3) -> list[tuple[str, int, float, float]]:
-    """Per message type: (type, count, µs two-step cdr + convert, µs fused fastpath).
+    """Per message type: (type, count, µs rosbags deserialise, µs io.decode).
 
-    Both paths run on the same in-memory CDR bytes, alternating, best of ``reps``; the
-    results are checked equal (same samples and rejections) before timing.
+    Both run on the same in-memory CDR bytes, alternating, best of ``reps``.
     """
     from rosbags.rosbag2 import Reader
+    from rosbags.typesys import Stores, get_typestore
 
     from kinematic_monitor.config.files import load_config
-    from kinematic_monitor.io import cdr, convert, fastpath
+    from kinematic_monitor.io import convert, decode
     from kinematic_monitor.io.bag import inputs_from_config
 
+    store = get_typestore(Stores.ROS2_JAZZY)
     inp = inputs_from_config(load_config(params))
     jmap = convert.JointMap(inp.steering_joints, inp.front_wheel_joints, inp.rear_wheel_joints)
-    st = convert.stamp_seconds
-
-    def js(b: bytes) -> object:
-        f = cdr.decode_joint_state(b)
-        return convert.chassis_from_joint_state(st(f.sec, f.nanosec), f.names, f.positions,
-                                                f.velocities, jmap, inp.max_steer)
-
-    def odom(b: bytes) -> object:
-        o = cdr.decode_odometry(b)
-        return convert.localization_from_odometry(
-            st(o.sec, o.nanosec), o.frame_id, o.position, o.orientation, o.pose_covariance,
-            o.linear, o.angular, o.twist_covariance)
-
-    def imu(b: bytes) -> object:
-        i = cdr.decode_imu(b)
-        return convert.imu_from_fields(
-            st(i.sec, i.nanosec), i.orientation, i.orientation_covariance, i.angular_velocity,
-            i.angular_velocity_covariance, i.linear_acceleration,
-            i.linear_acceleration_covariance)
-
-    old = {"sensor_msgs/msg/JointState": js, "nav_msgs/msg/Odometry": odom,
-           "sensor_msgs/msg/Imu": imu}
     data: dict[str, list[bytes]] = {}
     with Reader(bag) as reader:
         for conn, _ts, raw in reader.messages():
-            if conn.msgtype in old:
+            if conn.msgtype in decode.DECODED_TYPES:
                 data.setdefault(conn.msgtype, []).append(bytes(raw))
     out = []
     for t, bufs in data.items():
-        two, new = old[t], fastpath.converter_for(t, jmap, inp.max_steer)
-        if any(repr(two(b)) != repr(new(b)) for b in bufs):
-            raise SystemExit(f"fastpath differs from cdr + convert on {t}")
-        best = {"two": math.inf, "new": math.inf}
+        new = decode.decoder_for(t, jmap, inp.max_steer)
+
+        def ref(b: bytes, t: str = t) -> object:
+            return store.deserialize_cdr(b, t)
+
+        best = {"ref": math.inf, "new": math.inf}
         for _ in range(reps):
-            for name, fn in (("two", two), ("new", new)):
+            for name, fn in (("ref", ref), ("new", new)):
                 c = time.process_time()
                 for b in bufs:
                     fn(b)
                 best[name] = min(best[name], time.process_time() - c)
-        out.append((t, len(bufs), 1e6 * best["two"] / len(bufs), 1e6 * best["new"] / len(bufs)))
+        out.append((t, len(bufs), 1e6 * best["ref"] / len(bufs), 1e6 * best["new"] / len(bufs)))
     return out
 
 
@@ -264,9 +247,9 @@ def main() -> int:
         print(f"baseline / this: {base[0] / rep_w:.2f}x wall, "
               f"{base[1] / max(rep_c, 1e-9):.2f}x cpu; event counts "
               f"{'identical' if same else 'DIFFER'}")
-    print("decode + convert per message (cpu, same bytes in memory, results checked equal):")
+    print("decode per message (cpu, same bytes in memory):")
     for kind, count, two, new in decode:
-        print(f"  {kind:30s} n={count:6d}  cdr + convert {two:5.2f} us  fastpath {new:5.2f} us  "
+        print(f"  {kind:30s} n={count:6d}  rosbags {two:5.2f} us  io.decode {new:5.2f} us  "
               f"({two / max(new, 1e-9):.1f}x)")
     per = 1e6 / max(n, 1)
     print(f"per message (cpu): bare {bare_c * per:.1f} us, reader {ours_c * per:.1f} us, "

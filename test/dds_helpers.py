@@ -345,13 +345,13 @@ def _publish_main(argv: Sequence[str]) -> int:
     import random
 
     import rclpy
+    import sample_msgs as rm
     from nav_msgs.msg import Odometry
     from rclpy.node import Node
     from rclpy.qos import QoSProfile, ReliabilityPolicy
     from sensor_msgs.msg import Imu, JointState
 
     from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
-    from kinematic_monitor.ros import messages as rm
 
     stop = {"flag": False}
 

@@ -62,10 +62,14 @@ def _event_windows(paths: list[str]) -> list[tuple[float, float]]:
 
 
 def _stream(path: str, config: Any) -> Iterator[Any]:
+    """The bag's samples in stamp order (the calibration needs no TimeReset markers)."""
+    from kinematic_monitor.core.ordering import TimeReset
     from kinematic_monitor.io.bag import open_bag
 
     with open_bag(path, config) as src:
-        yield from src.iter_samples()
+        for s in src.iter_samples():
+            if not isinstance(s, TimeReset):
+                yield s
 
 
 def _fmt(e: Any) -> str:

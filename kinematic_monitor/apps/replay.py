@@ -28,8 +28,11 @@ from kinematic_monitor.apps.cli import (
     load_config,
     progress_wanted,
 )
-from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
+from kinematic_monitor.config.validation import MonitorConfig
+from kinematic_monitor.core.ordering import TimeReset
+from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample, Sample
 from kinematic_monitor.io.outputs import OutputDir, OutputDirError
+from kinematic_monitor.io.sources import SampleSource
 from kinematic_monitor.io.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter
 
 if TYPE_CHECKING:  # pragma: no cover - typing only (the core is imported when it runs)
@@ -301,7 +304,7 @@ def _thresholds(config: Any, channels: list[str]) -> dict[str, list[tuple[str, f
     return out
 
 
-def _open_bag(path: str, config: Any) -> Any:
+def _open_bag(path: str, config: MonitorConfig) -> SampleSource:
     from kinematic_monitor.io import bag
 
     p = Path(path)
@@ -313,14 +316,15 @@ def _open_bag(path: str, config: Any) -> Any:
         raise UsageError(f"bag {path!r}: {exc}") from None
 
 
-def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> Iterator[Any]:
+def _iter_with_progress(source: SampleSource, show: bool, read_ahead: bool = False
+                        ) -> Iterator[Sample | TimeReset]:
     """The bag's samples, with a tqdm bar over messages read when ``show``; read and
     decoded in a child process when ``read_ahead`` (see ``readahead``)."""
     if read_ahead:
         from kinematic_monitor.io import readahead
 
-        samples: Callable[..., Iterator[Any]] = functools.partial(readahead.iter_samples,
-                                                                  source)
+        samples: Callable[..., Iterator[Sample | TimeReset]] = functools.partial(
+            readahead.iter_samples, source)
     else:
         samples = source.iter_samples
     if not show:
@@ -332,7 +336,7 @@ def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> It
         # no tqdm monitor thread: the read-ahead forks, and a fork should not copy a
         # process that runs other threads
         tqdm.monitor_interval = 0
-    total = int(getattr(source, "message_count", 0)) or None
+    total = source.message_count or None
     bar = tqdm(total=total, unit="msg", unit_scale=True, desc="replay", file=sys.stderr,
                mininterval=0.5)
     done = [0]
@@ -347,33 +351,33 @@ def _iter_with_progress(source: Any, show: bool, read_ahead: bool = False) -> It
         bar.close()
 
 
-def _lost_data(source: Any) -> list[str]:
+def _lost_data(source: SampleSource) -> list[str]:
     """Plain sentences on what the bag reader could not read or had to drop."""
     out: list[str] = []
-    damage = getattr(source, "damage", None)
-    if damage is not None:
-        summary = getattr(damage, "summary", None)
-        out.append(summary() if callable(summary) else str(damage))
-    for w in getattr(source, "warnings", None) or ():
-        out.append(str(w))
-    late = int(getattr(source, "out_of_order", 0) or 0)
+    if source.damage is not None:
+        out.append(source.damage.summary())
+    out.extend(source.warnings)
+    late = source.out_of_order
     if late:
-        out.append(f"{late} message(s) arrived too late to be used in stamp order (dropped)")
-    jumps = int(getattr(source, "time_jumps", 0) or 0)
+        where = ", ".join(f"{topic}: {st.rejected['out_of_order']}"
+                          for topic, st in source.stats.items() if st.rejected["out_of_order"])
+        out.append(f"{late} message(s) arrived too late to be used in stamp order (dropped; "
+                   f"{where})")
+    jumps = source.time_jumps
     if jumps:
         out.append(f"header-stamp time jumped backwards {jumps} time(s); the monitor was "
                    "reset at each jump")
     return out
 
 
-def _counters(monitor: Any, source: Any) -> dict[str, int]:
+def _counters(monitor: Any, source: SampleSource) -> dict[str, int]:
     """Rejections and drops: per topic and reason from the bag, and the monitor's counters."""
     out: dict[str, int] = {}
-    for topic, st in (getattr(source, "stats", None) or {}).items():
-        for reason, n in getattr(st, "rejected", {}).items():
+    for topic, st in source.stats.items():
+        for reason, n in st.rejected.items():
             if n and reason != "out_of_order":
                 out[f"{topic} rejected ({reason})"] = int(n)
-    counters = getattr(monitor, "counters", None)
+    counters = monitor.counters
     if isinstance(counters, Mapping):
         for k, v in counters.items():
             lost = k.startswith("rejected") or k in ("filter_errors", "time_resets")
@@ -404,7 +408,7 @@ def replay(bag_path: str, params_path: str, out_dir: str, *, force: bool = False
     try:
         from kinematic_monitor.io import readahead
 
-        ahead = readahead.wanted(read_ahead, int(getattr(source, "message_count", 0) or 0))
+        ahead = readahead.wanted(read_ahead, source.message_count)
         result = _run(source, config, outdir, str(bag_path), report=report,
                       write_bag=write_bag, series_interval=series_interval,
                       progress=progress, read_ahead=ahead)
@@ -480,80 +484,6 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
 DIAGNOSTICS_TOPIC = "/diagnostics"
 PREDICTION_TOPIC = "/kinematic_monitor/prediction"
 EVENTS_TOPIC = "/kinematic_monitor/events"
-HARDWARE_ID = "kinematic_monitor"
-
-
-class _AnnotationMessages:
-    """Builds the node's output messages with a rosbags typestore (DESIGN.md section 3)."""
-
-    def __init__(self) -> None:
-        from rosbags.typesys import Stores, get_typestore
-
-        self.store = get_typestore(Stores.ROS2_JAZZY)
-        self.t = self.store.types
-
-    def _header(self, stamp: float, frame_id: str) -> Any:
-        t = self.t
-        ns = int(round(stamp * 1e9))
-        return t["std_msgs/msg/Header"](
-            stamp=t["builtin_interfaces/msg/Time"](sec=ns // 1_000_000_000,
-                                                   nanosec=ns % 1_000_000_000),
-            frame_id=frame_id)
-
-    def _status(self, level: int, name: str, message: str, values: Mapping[str, Any]) -> Any:
-        t = self.t
-        kv = t["diagnostic_msgs/msg/KeyValue"]
-        return t["diagnostic_msgs/msg/DiagnosticStatus"](
-            level=int(level), name=name, message=message, hardware_id=HARDWARE_ID,
-            values=[kv(key=str(k), value=str(v)) for k, v in values.items()])
-
-    def diagnostics(self, stamp: float, statuses: list[Any]) -> bytes:
-        msgtype = "diagnostic_msgs/msg/DiagnosticArray"
-        msg = self.t[msgtype](header=self._header(stamp, ""), status=[
-            self._status(st.level, st.name, st.message, st.values or {}) for st in statuses])
-        return bytes(self.store.serialize_cdr(msg, msgtype))
-
-    def event(self, kind: str, d: Mapping[str, Any], level: int) -> tuple[float, bytes]:
-        """DiagnosticStatus for an event start or end (``d``: the events.json record)."""
-        import json as _json
-
-        start = kind == "start"
-        stamp = d["detected_at"] if start else d["end"]
-        values = {k: (_json.dumps(v) if isinstance(v, dict | list) or v is None else v)
-                  for k, v in d.items() if k != "summary"}
-        values["type"] = kind
-        status = self._status(level if start else 0, f"kinematic_monitor: event {d['kind']}",
-                              f"{kind}: {d['summary']}", values)
-        return (math.nan if stamp is None else float(stamp)), bytes(self.store.serialize_cdr(
-            status, "diagnostic_msgs/msg/DiagnosticStatus"))
-
-    def prediction(self, pred: Any) -> bytes:
-        import numpy as np
-
-        from kinematic_monitor.core.geometry import yaw_to_quaternion
-
-        t = self.t
-        qx, qy, qz, qw = yaw_to_quaternion(pred.yaw)
-        cov = np.zeros(36)
-        pc = list(pred.pose_cov) if len(pred.pose_cov) == 9 else [0.0] * 9
-        for i, ii in enumerate((0, 1, 5)):  # (x, y, yaw) -> 6x6 (x y z roll pitch yaw)
-            for j, jj in enumerate((0, 1, 5)):
-                cov[ii * 6 + jj] = pc[i * 3 + j]
-        v3 = t["geometry_msgs/msg/Vector3"]
-        msgtype = "nav_msgs/msg/Odometry"
-        msg = t[msgtype](
-            header=self._header(pred.stamp, pred.frame_id),
-            child_frame_id="base_link",
-            pose=t["geometry_msgs/msg/PoseWithCovariance"](
-                pose=t["geometry_msgs/msg/Pose"](
-                    position=t["geometry_msgs/msg/Point"](x=pred.x, y=pred.y, z=0.0),
-                    orientation=t["geometry_msgs/msg/Quaternion"](x=qx, y=qy, z=qz, w=qw)),
-                covariance=cov),
-            twist=t["geometry_msgs/msg/TwistWithCovariance"](
-                twist=t["geometry_msgs/msg/Twist"](linear=v3(x=pred.v, y=0.0, z=0.0),
-                                                   angular=v3(x=0.0, y=0.0, z=pred.yaw_rate)),
-                covariance=np.zeros(36)))
-        return bytes(self.store.serialize_cdr(msg, msgtype))
 
 
 def _copy_connection(writer: Any, c: Any, store: Any) -> Any:
@@ -568,7 +498,7 @@ def _copy_connection(writer: Any, c: Any, store: Any) -> Any:
                                  offered_qos_profiles=qos)
 
 
-def _write_annotated_bag(source: Any, path: Path,
+def _write_annotated_bag(source: SampleSource, path: Path,
                          rows: list[tuple[float, list[Any] | None, Any]],
                          transitions: list[tuple[str, dict[str, Any], int]]) -> list[str]:
     """Copy the input bag into ``path`` (same storage) with the monitor's outputs added.
@@ -579,27 +509,31 @@ def _write_annotated_bag(source: Any, path: Path,
     import heapq
 
     from rosbags.rosbag2 import Reader, StoragePlugin, Writer
+    from rosbags.typesys import Stores, get_typestore
 
-    build = _AnnotationMessages()
+    from kinematic_monitor.io import outgoing
+
+    store = get_typestore(Stores.ROS2_JAZZY)  # message definitions of the added topics
     added: list[tuple[int, str, bytes]] = []  # (log time ns, topic, cdr)
     for stamp, statuses, pred in rows:
-        # DESIGN.md section 3: /diagnostics at >= 1 Hz and at once on a level change
-        # (the recorder kept statuses exactly at those moments)
+        # /diagnostics at >= 1 Hz and at once on a level change (the recorder kept
+        # statuses exactly at those moments), as the node publishes it
         if statuses is not None:
-            added.append((int(round(stamp * 1e9)), DIAGNOSTICS_TOPIC,
-                          build.diagnostics(stamp, statuses)))
+            ns = int(round(stamp * 1e9))
+            added.append((ns, DIAGNOSTICS_TOPIC, outgoing.diagnostics(
+                *divmod(ns, 1_000_000_000), statuses)))
         if pred is not None:
             added.append((int(round(pred.stamp * 1e9)), PREDICTION_TOPIC,
-                          build.prediction(pred)))
+                          outgoing.prediction(pred, pred.frame_id)))
     for kind, record, level in transitions:
-        stamp, data = build.event(kind, record, level)
+        stamp = outgoing.event_stamp(kind, record)
         if math.isfinite(stamp):
-            added.append((int(round(stamp * 1e9)), EVENTS_TOPIC, data))
+            added.append((int(round(stamp * 1e9)), EVENTS_TOPIC,
+                          outgoing.event_status(kind, record, level)))
     added.sort(key=lambda r: r[0])
 
     notes: list[str] = []
-    plugin = StoragePlugin.MCAP if getattr(source, "storage", "") == "mcap" else (
-        StoragePlugin.SQLITE3)
+    plugin = StoragePlugin.MCAP if source.storage == "mcap" else StoragePlugin.SQLITE3
     writer = Writer(path, version=9, storage_plugin=plugin)
     writer.open()
     try:
@@ -607,14 +541,14 @@ def _write_annotated_bag(source: Any, path: Path,
         for topic, msgtype in ((DIAGNOSTICS_TOPIC, "diagnostic_msgs/msg/DiagnosticArray"),
                                (PREDICTION_TOPIC, "nav_msgs/msg/Odometry"),
                                (EVENTS_TOPIC, "diagnostic_msgs/msg/DiagnosticStatus")):
-            conns[topic] = writer.add_connection(topic, msgtype, typestore=build.store)
+            conns[topic] = writer.add_connection(topic, msgtype, typestore=store)
 
         def original() -> Iterator[tuple[int, str, bytes]]:
             try:
                 with Reader(source.path) as reader:
                     for c in reader.connections:
                         if c.topic not in conns:
-                            conns[c.topic] = _copy_connection(writer, c, build.store)
+                            conns[c.topic] = _copy_connection(writer, c, store)
                     for c, ts, raw in reader.messages():
                         yield ts, c.topic, bytes(raw)
             except Exception as exc:  # noqa: BLE001 - damaged input: copy what was readable

@@ -114,23 +114,17 @@ def read_fixes(bag: str, topic: str) -> list[tuple[float, float, float]]:
     from rosbags.rosbag2 import Reader
 
     from kinematic_monitor.core.samples import GnssSample
-    from kinematic_monitor.io import cdr
-    from kinematic_monitor.io.bag import NAVSATFIX
-    from kinematic_monitor.io.convert import gnss_from_fields, stamp_seconds
+    from kinematic_monitor.io import decode
 
     out: list[tuple[float, float, float]] = []
     with Reader(Path(bag)) as reader:
-        conns = [c for c in reader.connections if c.topic == topic and c.msgtype == NAVSATFIX]
+        conns = [c for c in reader.connections
+                 if c.topic == topic and c.msgtype == decode.NAVSATFIX]
         if not conns:
             return []
         try:
             for _conn, _t, data in reader.messages(connections=conns):
-                try:
-                    f = cdr.decode_navsatfix(data)
-                except cdr.CdrError:
-                    continue
-                s = gnss_from_fields(stamp_seconds(f.sec, f.nanosec), f.status, f.latitude,
-                                     f.longitude, f.altitude)
+                s = decode.navsatfix(data)
                 if isinstance(s, GnssSample):
                     out.append((s.stamp, s.latitude, s.longitude))
         except Exception:  # noqa: BLE001 - a damaged tail: keep the fixes read so far

@@ -30,6 +30,9 @@ released one is late: counted and dropped. A stamp more than ``reset_threshold``
 *behind* the newest seen (a bag restarted, simulated time reset) is a backwards time jump:
 the buffered samples of the old timeline are released, a ``TimeReset`` marker follows, and
 the new timeline starts with that sample. Consumers pass the marker to ``Monitor.process``.
+
+:func:`input_buffer` builds the buffer from the configuration; the live node and the bag
+reader both use it, so replay orders samples exactly as the node does.
 """
 
 from __future__ import annotations
@@ -47,7 +50,49 @@ REGULARITY = 1.5  # largest / smallest gap in the window of a regular stream
 
 
 class _Stamped(Protocol):
-    stamp: float
+    @property
+    def stamp(self) -> float: ...
+
+
+#: stream names of the configured inputs (single-value inputs are named by their roles,
+#: e.g. ``steering+speed``)
+INPUT_STREAMS = ("joint_states", "localization", "imu", "gnss")
+
+
+class _Topic(Protocol):
+    @property
+    def topic(self) -> str: ...
+
+
+class _Inputs(Protocol):
+    @property
+    def reorder_window(self) -> float: ...
+    @property
+    def joint_states(self) -> _Topic: ...
+    @property
+    def localization(self) -> _Topic: ...
+    @property
+    def imu(self) -> _Topic: ...
+    @property
+    def gnss(self) -> _Topic: ...
+
+
+class _Timeouts(Protocol):
+    @property
+    def joint_states(self) -> float: ...
+    @property
+    def localization(self) -> float: ...
+    @property
+    def imu(self) -> float: ...
+
+
+class InputConfig(Protocol):
+    """What :func:`input_buffer` reads of the configuration (``MonitorConfig``)."""
+
+    @property
+    def inputs(self) -> _Inputs: ...
+    @property
+    def timeouts(self) -> _Timeouts: ...
 
 
 @dataclass(frozen=True)
@@ -199,3 +244,23 @@ class ReorderBuffer:
             self.last_released = max(self.last_released, s)
             out.append(item)
         return out
+
+
+def input_buffer(cfg: InputConfig) -> ReorderBuffer:
+    """The reorder buffer of the monitor's inputs, as configured (node and replay alike).
+
+    Lag ``inputs.reorder_window`` [s]; a backwards jump of more than max(1 s, 2 lag + 0.5 s)
+    is a new timeline. Watermark release over the configured inputs (streams named as in
+    :data:`INPUT_STREAMS`); an input silent past its ``timeouts.*`` [s] stops holding the
+    others back. GNSS only tags positions for maps: it never holds the other inputs back.
+    """
+    lag = cfg.inputs.reorder_window
+    to = cfg.timeouts
+    topics = {"joint_states": cfg.inputs.joint_states.topic,
+              "localization": cfg.inputs.localization.topic,
+              "imu": cfg.inputs.imu.topic, "gnss": cfg.inputs.gnss.topic}
+    return ReorderBuffer(
+        lag, reset_threshold=max(1.0, 2.0 * lag + 0.5),
+        streams=[name for name, topic in topics.items() if topic and name != "gnss"],
+        stream_timeouts={"joint_states": to.joint_states, "localization": to.localization,
+                         "imu": to.imu}, default_timeout=1.0)

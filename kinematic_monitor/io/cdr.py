@@ -1,200 +1,125 @@
-"""Pull the few fields the monitor uses straight out of CDR-encoded ROS 2 messages.
+"""Reading CDR-encoded ROS 2 messages: byte order, alignment, strings, sequences, layouts.
 
-A generic deserialiser builds every field of every message; here each decoder reads
-only what the samples need, with precompiled ``struct`` layouts. Encoding rules
-(OMG XCDR version 1 as used by ROS 2): a 4-byte encapsulation header whose second
-byte is 1 for little endian and 0 for big endian, then the message body, where each
-primitive is aligned to its own size counted from the end of that 4-byte header;
-strings are a uint32 length (including the terminating NUL) followed by the bytes;
-sequences are a uint32 element count followed by the elements.
+Encoding rules (OMG XCDR version 1 as used by ROS 2): a 4-byte encapsulation header whose
+second byte is 1 for little endian and 0 for big endian, then the message body, where each
+primitive is aligned to its own size counted from the end of that 4-byte header; strings
+are a uint32 length (including the terminating NUL) followed by the bytes; sequences are a
+uint32 element count followed by the elements.
 
-Every decoder raises :class:`CdrError` (and only that) on a malformed buffer.
-Decoded values keep the message's units and frames (ROS message definitions).
+:class:`Layout` holds, per byte order, the precompiled ``struct`` layouts of the fixed
+blocks the decoders (:mod:`kinematic_monitor.io.decode`) read: only the used values are
+unpacked, the others are pad bytes, so each struct's size (its length check) is that of
+the whole block. Every reader raises :class:`CdrError` on a malformed buffer; other
+low-level errors (``struct.error``, ``UnicodeDecodeError`` ...) are turned into one by the
+decoders. Pure (no ROS import).
 """
 
 from __future__ import annotations
 
-import functools
 import struct
-from collections.abc import Callable
-from typing import NamedTuple, TypeVar
 
 __all__ = [
     "CdrError",
-    "JointStateFields",
-    "OdometryFields",
-    "PoseFields",
-    "ImuFields",
-    "NavSatFixFields",
-    "decode_joint_state",
-    "decode_odometry",
-    "decode_pose_with_covariance_stamped",
-    "decode_imu",
-    "decode_navsatfix",
-    "DECODERS",
+    "Layout",
+    "LE",
+    "BE",
+    "BODY",
+    "COV3",
+    "layout_of",
+    "read_names",
+    "read_doubles",
 ]
 
-Buffer = bytes | memoryview
-_T = TypeVar("_T")
-_BODY = 4  # alignment origin: end of the encapsulation header
+BODY = 4  # alignment origin: end of the encapsulation header
+
+#: (x, y, yaw) block of a 6x6 row-major covariance: rows/cols 0, 1, 5
+COV3 = (0, 1, 5, 6, 7, 11, 30, 31, 35)
 
 
 class CdrError(ValueError):
     """A CDR buffer is truncated, has an unknown encapsulation or bogus lengths."""
 
 
-class _Layout:
-    """Precompiled structs for one byte order."""
+def _picker(order: str, total: int, keep: list[int]) -> struct.Struct:
+    """Struct reading doubles ``keep`` (ascending) out of ``total`` consecutive doubles."""
+    fmt, at = order, 0
+    for i in keep:
+        if i > at:
+            fmt += f"{8 * (i - at)}x"
+        fmt += "d"
+        at = i + 1
+    if total > at:
+        fmt += f"{8 * (total - at)}x"
+    return struct.Struct(fmt)
 
-    __slots__ = ("head", "u32", "f64", "odom", "pose", "imu", "navsat", "i8", "u16", "u8")
+
+# nav_msgs/msg/Odometry after the child frame: pose.pose (7), pose.covariance (36),
+# twist.twist (6), twist.covariance (36) = 85 doubles; used: position x y, quaternion,
+# pose cov (x, y, yaw) block, linear x y, angular z, twist cov (vx, vy, wz) block
+_ODOM_KEEP = [0, 1, 3, 4, 5, 6, *(7 + i for i in COV3), 43, 44, 48, *(49 + i for i in COV3)]
+# geometry_msgs/msg/PoseWithCovarianceStamped after the header: 7 + 36 = 43 doubles
+_POSE_KEEP = [0, 1, 3, 4, 5, 6, *(7 + i for i in COV3)]
+# sensor_msgs/msg/Imu after the header: quaternion 4, cov 9, gyro 3, cov 9, acc 3, cov 9;
+# used: quaternion, orientation cov[0], gyro z, gyro cov[0], acc x y, acc cov[0]
+_IMU_KEEP = [0, 1, 2, 3, 4, 15, 16, 25, 26, 28]
+
+
+class Layout:
+    """Precompiled structs for one byte order (``order``: '<' or '>')."""
+
+    __slots__ = ("order", "head", "u32", "i8", "u16", "u8", "odom", "pose", "imu", "navsat",
+                 "_doubles")
 
     def __init__(self, order: str) -> None:
+        self.order = order
         self.head = struct.Struct(order + "iII")  # stamp sec, nanosec, frame_id length
         self.u32 = struct.Struct(order + "I")
-        self.f64 = struct.Struct(order + "d")
-        self.odom = struct.Struct(order + "85d")  # pose 7, cov 36, twist 6, cov 36
-        self.pose = struct.Struct(order + "43d")  # pose 7, cov 36
-        self.imu = struct.Struct(order + "37d")  # quat 4, cov 9, gyro 3, cov 9, acc 3, cov 9
-        self.navsat = struct.Struct(order + "12d")  # lat, lon, alt, cov 9
         self.i8 = struct.Struct(order + "b")
         self.u16 = struct.Struct(order + "H")
         self.u8 = struct.Struct(order + "B")
+        self.odom = _picker(order, 85, _ODOM_KEEP)
+        self.pose = _picker(order, 43, _POSE_KEEP)
+        self.imu = _picker(order, 37, _IMU_KEEP)
+        self.navsat = struct.Struct(order + "12d")  # lat, lon, alt, covariance 9
+        # float64-sequence layouts by count (JointState counts repeat)
+        self._doubles: dict[int, struct.Struct] = {}
+
+    def doubles(self, count: int) -> struct.Struct:
+        """Struct of ``count`` consecutive float64 (cached)."""
+        st = self._doubles.get(count)
+        if st is None:
+            if len(self._doubles) >= 64:
+                self._doubles.clear()
+            st = self._doubles[count] = struct.Struct(f"{self.order}{count}d")
+        return st
 
 
-_LE = _Layout("<")
-_BE = _Layout(">")
+LE = Layout("<")
+BE = Layout(">")
 
 
-class JointStateFields(NamedTuple):
-    """Used fields of sensor_msgs/msg/JointState (positions [rad], velocities [rad/s])."""
-
-    sec: int
-    nanosec: int
-    frame_id: str
-    names: tuple[str, ...]
-    positions: tuple[float, ...]
-    velocities: tuple[float, ...]
-
-
-class OdometryFields(NamedTuple):
-    """Used fields of nav_msgs/msg/Odometry (pose in frame_id, twist in child frame)."""
-
-    sec: int
-    nanosec: int
-    frame_id: str
-    child_frame_id: str
-    position: tuple[float, float, float]
-    orientation: tuple[float, float, float, float]  # x, y, z, w
-    pose_covariance: tuple[float, ...]  # 36, row-major (x, y, z, roll, pitch, yaw)
-    linear: tuple[float, float, float]
-    angular: tuple[float, float, float]
-    twist_covariance: tuple[float, ...]  # 36, row-major
-
-
-class PoseFields(NamedTuple):
-    """Used fields of geometry_msgs/msg/PoseWithCovarianceStamped."""
-
-    sec: int
-    nanosec: int
-    frame_id: str
-    position: tuple[float, float, float]
-    orientation: tuple[float, float, float, float]
-    pose_covariance: tuple[float, ...]
-
-
-class ImuFields(NamedTuple):
-    """Used fields of sensor_msgs/msg/Imu (body frame; rad/s, m/s²)."""
-
-    sec: int
-    nanosec: int
-    frame_id: str
-    orientation: tuple[float, float, float, float]
-    orientation_covariance: tuple[float, ...]
-    angular_velocity: tuple[float, float, float]
-    angular_velocity_covariance: tuple[float, ...]
-    linear_acceleration: tuple[float, float, float]
-    linear_acceleration_covariance: tuple[float, ...]
-
-
-class NavSatFixFields(NamedTuple):
-    """Used fields of sensor_msgs/msg/NavSatFix (degrees, metres)."""
-
-    sec: int
-    nanosec: int
-    frame_id: str
-    status: int
-    service: int
-    latitude: float
-    longitude: float
-    altitude: float
-    position_covariance: tuple[float, ...]
-    position_covariance_type: int
-
-
-def _layout(buf: Buffer) -> _Layout:
+def layout_of(buf: bytes) -> Layout:
+    """Byte order from the encapsulation header; CdrError if short or unknown."""
     if len(buf) < 4:
         raise CdrError(f"buffer of {len(buf)} bytes is shorter than the CDR header")
     kind = buf[1]
     if buf[0] != 0 or kind > 1:
         raise CdrError(f"unsupported CDR encapsulation {bytes(buf[:2]).hex()}")
-    return _LE if kind == 1 else _BE
-
-
-def _align(pos: int, size: int) -> int:
-    return pos + (-(pos - _BODY) % size)
-
-
-def _string(buf: Buffer, pos: int, lay: _Layout) -> tuple[str, int]:
-    """Read a CDR string at ``pos`` (aligned here); returns (text, end position)."""
-    pos = _align(pos, 4)
-    (length,) = lay.u32.unpack_from(buf, pos)
-    pos += 4
-    end = pos + length
-    if end > len(buf):
-        raise CdrError(f"string length {length} at offset {pos - 4} runs past the buffer")
-    if length == 0:
-        return "", pos
-    return bytes(buf[pos : end - 1]).decode(), end
-
-
-def _header(buf: Buffer, lay: _Layout) -> tuple[int, int, str, int]:
-    """Header stamp and frame_id; returns (sec, nanosec, frame_id, end position)."""
-    sec, nanosec, length = lay.head.unpack_from(buf, _BODY)
-    end = 16 + length
-    if end > len(buf):
-        raise CdrError(f"frame_id length {length} runs past the buffer")
-    return sec, nanosec, (bytes(buf[16 : end - 1]).decode() if length else ""), end
-
-
-def _guard(what: str) -> Callable[[Callable[[Buffer], _T]], Callable[[Buffer], _T]]:
-    """Turn every low-level decoding error of ``what`` into a CdrError."""
-
-    def wrap(func: Callable[[Buffer], _T]) -> Callable[[Buffer], _T]:
-        @functools.wraps(func)
-        def decode(buf: Buffer) -> _T:
-            try:
-                return func(buf)
-            except CdrError:
-                raise
-            except (struct.error, IndexError, UnicodeDecodeError, ValueError, TypeError) as exc:
-                raise CdrError(f"malformed {what}: {exc}") from None
-
-        return decode
-
-    return wrap
+    return LE if kind == 1 else BE
 
 
 # A names block (count, then length-prefixed strings) is self-delimiting, so bytes equal
 # to an already parsed block parse to the same names; JointState names repeat verbatim
 # message after message, so each distinct block is decoded once.
-_NAME_BLOCKS: list[tuple[_Layout, bytes, tuple[str, ...]]] = []
+_NAME_BLOCKS: list[tuple[Layout, bytes, tuple[str, ...]]] = []
 _NAME_BLOCKS_MAX = 8
 
 
-def _names(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[str, ...], int]:
-    pos = _align(pos, 4)
+def read_names(buf: bytes, pos: int, lay: Layout) -> tuple[tuple[str, ...], int]:
+    """A sequence<string> at ``pos`` (aligned here): (names, end position)."""
+    pos += -(pos - BODY) % 4
     for known_lay, block, names_known in _NAME_BLOCKS:
-        if known_lay is lay and buf[pos : pos + len(block)] == block:
+        if known_lay is lay and buf.startswith(block, pos):
             return names_known, pos + len(block)
     start = pos
     (count,) = lay.u32.unpack_from(buf, pos)
@@ -205,13 +130,13 @@ def _names(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[str, ...], int]:
     names: list[str] = []
     u32 = lay.u32.unpack_from
     for _ in range(count):
-        pos = _align(pos, 4)
+        pos += -(pos - BODY) % 4
         (length,) = u32(buf, pos)
         pos += 4
         end = pos + length
         if end > end_buf:
             raise CdrError(f"joint name length {length} at offset {pos - 4} runs past the buffer")
-        names.append(bytes(buf[pos : end - 1]).decode() if length else "")
+        names.append(buf[pos : end - 1].decode() if length else "")
         pos = end
     result = tuple(names)
     if len(_NAME_BLOCKS) >= _NAME_BLOCKS_MAX:
@@ -220,108 +145,16 @@ def _names(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[str, ...], int]:
     return result, pos
 
 
-#: compiled float64-sequence layouts by (layout, count); JointState counts repeat
-_DOUBLES: dict[tuple[_Layout, int], struct.Struct] = {}
-_DOUBLES_MAX = 64
-
-
-def _doubles(buf: Buffer, pos: int, lay: _Layout) -> tuple[tuple[float, ...], int]:
-    pos = _align(pos, 4)
+def read_doubles(buf: bytes, pos: int, lay: Layout) -> tuple[tuple[float, ...], int]:
+    """A sequence<float64> at ``pos`` (aligned here): (values, end position)."""
+    pos += -(pos - BODY) % 4
     (count,) = lay.u32.unpack_from(buf, pos)
     pos += 4
     if count == 0:
         return (), pos
-    pos = _align(pos, 8)
+    pos += -(pos - BODY) % 8
     end = pos + 8 * count
     if end > len(buf):
         raise CdrError(f"float64 sequence of {count} at offset {pos} runs past the buffer")
-    layout = _DOUBLES.get((lay, count))
-    if layout is None:
-        if len(_DOUBLES) >= _DOUBLES_MAX:
-            _DOUBLES.clear()
-        layout = _DOUBLES[(lay, count)] = struct.Struct(
-            ("<" if lay is _LE else ">") + f"{count}d")
-    return layout.unpack_from(buf, pos), end
-
-
-@_guard("sensor_msgs/msg/JointState")
-def decode_joint_state(buf: Buffer) -> JointStateFields:
-    """Header, names, positions and velocities of a JointState (efforts are skipped)."""
-    lay = _layout(buf)
-    sec, nanosec, frame_id, pos = _header(buf, lay)
-    names, pos = _names(buf, pos, lay)
-    positions, pos = _doubles(buf, pos, lay)
-    velocities, pos = _doubles(buf, pos, lay)
-    # efforts: validate only the count so a truncated tail is noticed
-    pos = _align(pos, 4)
-    (count,) = lay.u32.unpack_from(buf, pos)
-    if count and _align(pos + 4, 8) + 8 * count > len(buf):
-        raise CdrError(f"effort sequence of {count} runs past the buffer")
-    return JointStateFields(sec, nanosec, frame_id, names, positions, velocities)
-
-
-@_guard("nav_msgs/msg/Odometry")
-def decode_odometry(buf: Buffer) -> OdometryFields:
-    """Header, child frame, pose with covariance and twist with covariance."""
-    lay = _layout(buf)
-    sec, nanosec, frame_id, pos = _header(buf, lay)
-    child, pos = _string(buf, pos, lay)
-    v = lay.odom.unpack_from(buf, _align(pos, 8))
-    return OdometryFields(
-        sec,
-        nanosec,
-        frame_id,
-        child,
-        v[0:3],
-        v[3:7],
-        v[7:43],
-        v[43:46],
-        v[46:49],
-        v[49:85],
-    )
-
-
-@_guard("geometry_msgs/msg/PoseWithCovarianceStamped")
-def decode_pose_with_covariance_stamped(buf: Buffer) -> PoseFields:
-    """Header and pose with covariance."""
-    lay = _layout(buf)
-    sec, nanosec, frame_id, pos = _header(buf, lay)
-    v = lay.pose.unpack_from(buf, _align(pos, 8))
-    return PoseFields(sec, nanosec, frame_id, v[0:3], v[3:7], v[7:43])
-
-
-@_guard("sensor_msgs/msg/Imu")
-def decode_imu(buf: Buffer) -> ImuFields:
-    """Header, orientation, angular velocity and linear acceleration with covariances."""
-    lay = _layout(buf)
-    sec, nanosec, frame_id, pos = _header(buf, lay)
-    v = lay.imu.unpack_from(buf, _align(pos, 8))
-    return ImuFields(
-        sec, nanosec, frame_id, v[0:4], v[4:13], v[13:16], v[16:25], v[25:28], v[28:37]
-    )
-
-
-@_guard("sensor_msgs/msg/NavSatFix")
-def decode_navsatfix(buf: Buffer) -> NavSatFixFields:
-    """Header, fix status and service, position [deg, deg, m] and its covariance."""
-    lay = _layout(buf)
-    sec, nanosec, frame_id, pos = _header(buf, lay)
-    (status,) = lay.i8.unpack_from(buf, pos)
-    pos = _align(pos + 1, 2)
-    (service,) = lay.u16.unpack_from(buf, pos)
-    pos = _align(pos + 2, 8)
-    v = lay.navsat.unpack_from(buf, pos)
-    (cov_type,) = lay.u8.unpack_from(buf, pos + 96)
-    return NavSatFixFields(
-        sec, nanosec, frame_id, status, service, v[0], v[1], v[2], v[3:12], cov_type
-    )
-
-
-#: decoder by ROS 2 message type name
-DECODERS = {
-    "sensor_msgs/msg/JointState": decode_joint_state,
-    "nav_msgs/msg/Odometry": decode_odometry,
-    "geometry_msgs/msg/PoseWithCovarianceStamped": decode_pose_with_covariance_stamped,
-    "sensor_msgs/msg/Imu": decode_imu,
-    "sensor_msgs/msg/NavSatFix": decode_navsatfix,
-}
+    values: tuple[float, ...] = lay.doubles(count).unpack_from(buf, pos)
+    return values, end

@@ -1,13 +1,16 @@
-"""Message fields -> samples, with counted rejections instead of exceptions.
+"""The input rules: plain message values -> samples, with counted rejections.
 
-Pure (no ROS import): shared by the rclpy node, the bag reader and tests. The
-``*_from_fields`` functions take plain values; the ``*_from_msg`` functions take any
-object with the ROS 2 field names (rclpy messages and rosbags messages alike).
+The one home of every check an input message meets (stamps, NaN, quaternions, frames,
+covariances, joint names, steering range, GNSS fix) and of the rejection reasons
+(:data:`REASONS`). The decoders in :mod:`kinematic_monitor.io.decode` hand anything that
+is not the usual case to these functions; the single-value inputs
+(:mod:`kinematic_monitor.io.scalar_inputs`) use them too. :class:`JointMap` finds the
+configured joints in a JointState name list.
 
-Each converter returns a sample or a :class:`Rejected` whose ``reason`` is one of the
-short stable strings in :data:`REASONS`, so callers can count rejections per reason.
-Units and frames follow REP 103 and the ROS message definitions: metres, radians,
-seconds, body x forward / y left / z up, counter-clockwise positive.
+Each function returns a sample or a :class:`Rejected` whose ``reason`` is one of the short
+stable strings in :data:`REASONS`, so callers can count rejections per reason. Pure (no
+ROS import). Units and frames follow REP 103 and the ROS message definitions: metres,
+radians, seconds, body x forward / y left / z up, counter-clockwise positive.
 """
 
 from __future__ import annotations
@@ -15,7 +18,6 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
 
 from kinematic_monitor.core.samples import ChassisSample, GnssSample, ImuSample, LocalizationSample
 
@@ -30,19 +32,9 @@ __all__ = [
     "localization_from_pose",
     "imu_from_fields",
     "gnss_from_fields",
-    "chassis_from_msg",
-    "localization_from_odometry_msg",
-    "localization_from_pose_msg",
-    "imu_from_msg",
-    "gnss_from_msg",
-    "STANDARD_SCALAR_TYPES",
-    "ScalarSettings",
-    "ScalarInput",
-    "scalar_settings",
-    "plan_scalar_input",
-    "chassis_from_scalars",
-    "scalar_stamp",
-    "chassis_from_scalar_msg",
+    "stored_frame",
+    "world_frame",
+    "MIN_QUAT_NORM2",
 ]
 
 #: every rejection reason a converter can give, with its meaning
@@ -67,7 +59,7 @@ REASONS: dict[str, str] = {
 LOCALIZATION_FRAMES = ("map", "odom")
 
 #: below this squared norm a quaternion has no usable orientation
-_MIN_QUAT_NORM2 = 1e-12
+MIN_QUAT_NORM2 = 1e-12
 
 
 @dataclass(frozen=True, slots=True)
@@ -79,12 +71,12 @@ class Rejected:
 
 
 # shared instances for the common reasons (rejections are frequent on bad data)
-_BAD_STAMP = Rejected("bad_stamp")
-_NAN = Rejected("nan")
+BAD_STAMP = Rejected("bad_stamp")
+NAN_VALUE = Rejected("nan")
+STEER_OUT_OF_RANGE = Rejected("steer_out_of_range")
 _LENGTH = Rejected("length_mismatch")
 _MISSING = Rejected("missing_joint")
 _DUPLICATE = Rejected("duplicate_joint")
-_STEER = Rejected("steer_out_of_range")
 _QUAT = Rejected("bad_quaternion")
 _NO_RATE = Rejected("no_yaw_rate")
 _NO_FIX = Rejected("no_fix")
@@ -199,7 +191,7 @@ def chassis_from_joint_state(
     when no steering joints are (steering from another input).
     """
     if not (stamp > 0.0 and _isfinite(stamp)):
-        return _BAD_STAMP
+        return BAD_STAMP
     n = len(names)
     ns = len(jmap.steering)
     if ns and len(positions) != n:
@@ -211,11 +203,11 @@ def chassis_from_joint_state(
         sl = positions[idx[0]]
         sr = positions[idx[1]]
         if not (_isfinite(sl) and _isfinite(sr)):
-            return _NAN
+            return NAN_VALUE
         if jmap.steering_ratio != 1.0:
             sl, sr = sl / jmap.steering_ratio, sr / jmap.steering_ratio
         if abs(sl) > max_steer or abs(sr) > max_steer:
-            return _STEER
+            return STEER_OUT_OF_RANGE
     else:
         sl = sr = math.nan
     if len(idx) == ns:
@@ -225,7 +217,7 @@ def chassis_from_joint_state(
     w = [velocities[i] for i in idx[ns:]]
     for v in w:
         if not _isfinite(v):
-            return _NAN
+            return NAN_VALUE
     nan = math.nan
     if len(w) == 4:
         fl, fr, rl, rr = w
@@ -249,8 +241,8 @@ def _yaw(q: Sequence[float]) -> float | Rejected:
     x, y, z, w = q
     n2 = x * x + y * y + z * z + w * w
     if not _isfinite(n2):
-        return _NAN
-    if n2 < _MIN_QUAT_NORM2:
+        return NAN_VALUE
+    if n2 < MIN_QUAT_NORM2:
         return _QUAT
     # ZYX yaw; both atan2 arguments scale with the squared norm, so the normalised
     # quaternion gives the same angle (as transforms3d.euler.quat2euler, axes 'rzyx')
@@ -272,11 +264,12 @@ def _cov3(cov36: Sequence[float]) -> tuple[float, ...] | Rejected:
     return c
 
 
-def _frame(frame_id: str) -> str:
+def stored_frame(frame_id: str) -> str:
+    """The frame id as samples hold it: without a leading '/' (ROS 1 style)."""
     return frame_id[1:] if frame_id.startswith("/") else frame_id
 
 
-def _world_frame(frame: str) -> bool:
+def world_frame(frame: str) -> bool:
     """True for a REP 105 world-fixed frame (``map``, ``odom``, optionally tf-prefixed)."""
     return frame.rsplit("/", 1)[-1] in LOCALIZATION_FRAMES
 
@@ -294,18 +287,18 @@ def localization_from_pose(
     row-major covariance of (x, y, z, roll, pitch, yaw).
     """
     if not (stamp > 0.0 and _isfinite(stamp)):
-        return _BAD_STAMP
+        return BAD_STAMP
     px, py = position[0], position[1]
     if not (_isfinite(px) and _isfinite(py)):
-        return _NAN
+        return NAN_VALUE
     yaw = _yaw(orientation)
     if isinstance(yaw, Rejected):
         return yaw
     cov = _cov3(pose_covariance)
     if isinstance(cov, Rejected):
         return cov
-    frame = _frame(frame_id)
-    if not _world_frame(frame):
+    frame = stored_frame(frame_id)
+    if not world_frame(frame):
         return Rejected("unexpected_frame", repr(frame_id)[:80])
     return LocalizationSample(stamp, px, py, yaw, frame_id=frame, pose_cov=cov)
 
@@ -330,7 +323,7 @@ def localization_from_odometry(
         return pose
     vx, vy, wz = linear[0], linear[1], angular[2]
     if not (_isfinite(vx) and _isfinite(vy) and _isfinite(wz)):
-        return _NAN
+        return NAN_VALUE
     tcov = _cov3(twist_covariance)
     if isinstance(tcov, Rejected):
         return tcov
@@ -365,18 +358,18 @@ def imu_from_fields(
     orientation quaternion is also read as "no orientation" (common practice, no source).
     """
     if not (stamp > 0.0 and _isfinite(stamp)):
-        return _BAD_STAMP
+        return BAD_STAMP
     if len(angular_velocity_covariance) and angular_velocity_covariance[0] == -1.0:
         return _NO_RATE
     wz = angular_velocity[2]
     if not _isfinite(wz):
-        return _NAN
+        return NAN_VALUE
     if len(linear_acceleration_covariance) and linear_acceleration_covariance[0] == -1.0:
         ax = ay = math.nan
     else:
         ax, ay = linear_acceleration[0], linear_acceleration[1]
         if not (_isfinite(ax) and _isfinite(ay)):
-            return _NAN
+            return NAN_VALUE
     yaw = math.nan
     absent = len(orientation_covariance) > 0 and orientation_covariance[0] == -1.0
     if not absent and any(orientation):
@@ -400,264 +393,13 @@ def gnss_from_fields(
 ) -> GnssSample | Rejected:
     """WGS84 fix: latitude, longitude [deg], altitude [m] (NaN allowed for altitude)."""
     if not (stamp > 0.0 and _isfinite(stamp)):
-        return _BAD_STAMP
+        return BAD_STAMP
     if status == _STATUS_NO_FIX:
         return _NO_FIX
     if not (_isfinite(latitude) and _isfinite(longitude)):
-        return _NAN
+        return NAN_VALUE
     if not (-90.0 <= latitude <= 90.0 and -180.0 <= longitude <= 180.0):
         return _RANGE
     if math.isinf(altitude):
-        return _NAN
+        return NAN_VALUE
     return GnssSample(stamp, latitude, longitude, altitude)
-
-
-# ---- duck-typed message objects (rclpy or rosbags classes share field names) ----
-
-
-def _stamp(msg: Any) -> float:
-    st = msg.header.stamp
-    return stamp_seconds(int(st.sec), int(st.nanosec))
-
-
-def _xyz(v: Any) -> tuple[float, float, float]:
-    return (float(v.x), float(v.y), float(v.z))
-
-
-def _floats(values: Any) -> tuple[float, ...]:
-    return tuple(map(float, values))
-
-
-def _xyzw(q: Any) -> tuple[float, float, float, float]:
-    return (float(q.x), float(q.y), float(q.z), float(q.w))
-
-
-def chassis_from_msg(
-    msg: Any, jmap: JointMap, max_steer: float = math.pi / 2
-) -> ChassisSample | Rejected:
-    """sensor_msgs/msg/JointState object -> ChassisSample (see chassis_from_joint_state)."""
-    return chassis_from_joint_state(
-        _stamp(msg),
-        tuple(msg.name),
-        _floats(msg.position),
-        _floats(msg.velocity),
-        jmap,
-        max_steer,
-    )
-
-
-def localization_from_odometry_msg(msg: Any) -> LocalizationSample | Rejected:
-    """nav_msgs/msg/Odometry object -> LocalizationSample."""
-    pose, twist = msg.pose, msg.twist
-    return localization_from_odometry(
-        _stamp(msg),
-        str(msg.header.frame_id),
-        _xyz(pose.pose.position),
-        _xyzw(pose.pose.orientation),
-        _floats(pose.covariance),
-        _xyz(twist.twist.linear),
-        _xyz(twist.twist.angular),
-        _floats(twist.covariance),
-    )
-
-
-def localization_from_pose_msg(msg: Any) -> LocalizationSample | Rejected:
-    """geometry_msgs/msg/PoseWithCovarianceStamped object -> LocalizationSample."""
-    pose = msg.pose
-    return localization_from_pose(
-        _stamp(msg),
-        str(msg.header.frame_id),
-        _xyz(pose.pose.position),
-        _xyzw(pose.pose.orientation),
-        _floats(pose.covariance),
-    )
-
-
-def imu_from_msg(msg: Any) -> ImuSample | Rejected:
-    """sensor_msgs/msg/Imu object -> ImuSample."""
-    return imu_from_fields(
-        _stamp(msg),
-        _xyzw(msg.orientation),
-        _floats(msg.orientation_covariance),
-        _xyz(msg.angular_velocity),
-        _floats(msg.angular_velocity_covariance),
-        _xyz(msg.linear_acceleration),
-        _floats(msg.linear_acceleration_covariance),
-    )
-
-
-def gnss_from_msg(msg: Any) -> GnssSample | Rejected:
-    """sensor_msgs/msg/NavSatFix object -> GnssSample."""
-    return gnss_from_fields(
-        _stamp(msg),
-        int(msg.status.status),
-        float(msg.latitude),
-        float(msg.longitude),
-        float(msg.altitude),
-    )
-
-
-# ---- single-value inputs: steering and speed from other message types -------------------
-
-#: message type and field path behind each standard ``inputs.steering.type`` /
-#: ``inputs.speed.type`` choice ('field' takes both from the parameters)
-STANDARD_SCALAR_TYPES: dict[str, tuple[str, str]] = {
-    "float64": ("std_msgs/msg/Float64", "data"),
-    "float32": ("std_msgs/msg/Float32", "data"),
-    "twist_stamped": ("geometry_msgs/msg/TwistStamped", "twist.linear.x"),
-}
-
-
-@dataclass(frozen=True)
-class ScalarSettings:
-    """One ``inputs.steering.*`` or ``inputs.speed.*`` group as configured (unchecked paths).
-
-    value = (raw * scale + offset) / divisor: steering in rad (road-wheel, bicycle
-    equivalent; ``divisor`` = vehicle.steering_ratio for steering-wheel angles), speed in
-    m/s (taken as the speed of the centre of gravity, body x forward).
-    """
-
-    role: str  # 'steering' | 'speed'
-    topic: str
-    type: str  # 'float64' | 'float32' | 'twist_stamped' | 'field'
-    type_name: str  # pkg/msg/Name
-    field: str
-    scale: float = 1.0
-    offset: float = 0.0
-    divisor: float = 1.0
-    max_abs: float = math.inf  # [rad] largest plausible road-wheel angle (steering only)
-
-    @property
-    def param_prefix(self) -> str:
-        """``inputs.steering`` or ``inputs.speed``."""
-        return f"inputs.{self.role}"
-
-    def describe(self) -> str:
-        """'topic (type, field path)' for messages."""
-        return f"{self.topic} ({self.type_name}, field '{self.field}')"
-
-
-@dataclass(frozen=True)
-class ScalarInput:
-    """A checked single-value input: settings plus the field plan (where number and stamp are)."""
-
-    settings: ScalarSettings
-    plan: Any  # fieldpath.FieldPlan
-
-    @property
-    def receive_time_stamped(self) -> bool:
-        """True when the message has no header on the path (samples take the receive time)."""
-        return self.plan.stamp_path is None
-
-
-def scalar_settings(get: Any) -> list[ScalarSettings]:
-    """The enabled steering/speed inputs from ``get(dotted_name)`` (a parameter look-up).
-
-    Standard types fill in their message type and field path. The scale must be finite and
-    non-zero (ValueError naming the parameter otherwise).
-    """
-    out: list[ScalarSettings] = []
-    for role in ("steering", "speed"):
-        pre = f"inputs.{role}."
-        topic = str(get(pre + "topic"))
-        if not topic:
-            continue
-        kind = str(get(pre + "type"))
-        if kind == "field":
-            type_name, field = str(get(pre + "type_name")), str(get(pre + "field"))
-        elif kind in STANDARD_SCALAR_TYPES:
-            type_name, field = STANDARD_SCALAR_TYPES[kind]
-        else:
-            raise ValueError(f"parameter '{pre}type': bad value {kind!r}")
-        scale = float(get(pre + "scale"))
-        if not (math.isfinite(scale) and scale != 0.0):
-            raise ValueError(f"parameter '{pre}scale': bad value {scale!r}; "
-                             "allowed: a finite, non-zero number")
-        offset = float(get(pre + "offset"))
-        if not math.isfinite(offset):
-            raise ValueError(f"parameter '{pre}offset': bad value {offset!r}; "
-                             "allowed: a finite number")
-        divisor, max_abs = 1.0, math.inf
-        if role == "steering":
-            max_abs = float(get("vehicle.max_road_wheel_angle"))
-            if str(get(pre + "kind")) == "steering_wheel":
-                divisor = float(get("vehicle.steering_ratio"))
-        out.append(ScalarSettings(role, topic, kind, type_name, field, scale, offset,
-                                  divisor, max_abs))
-    return out
-
-
-def plan_scalar_input(settings: ScalarSettings, fields_of: Any) -> ScalarInput:
-    """Check the field path against the message type (``fields_of``, see fieldpath.plan).
-
-    Raises ValueError naming the parameter group, topic, type and path.
-    """
-    from kinematic_monitor.io import fieldpath
-
-    try:
-        path = fieldpath.parse(settings.field)
-        plan = fieldpath.plan(settings.type_name, path, fields_of)
-    except fieldpath.FieldPathError as exc:
-        raise ValueError(
-            f"{settings.param_prefix}: topic {settings.topic}, type {settings.type_name}, "
-            f"field '{settings.field}': {exc}") from None
-    return ScalarInput(settings, plan)
-
-
-def _scaled(raw: float, s: ScalarSettings) -> float:
-    return (raw * s.scale + s.offset) / s.divisor
-
-
-def chassis_from_scalars(
-    stamp: float, values: Sequence[tuple[ScalarSettings, float]]
-) -> ChassisSample | Rejected:
-    """ChassisSample with ``steer`` [rad] and/or ``speed`` [m/s] from raw input values.
-
-    ``values`` holds (settings, raw value) for each input read from one message (one, or
-    two when steering and speed share a topic). A non-finite value rejects ('nan'); a
-    steering angle beyond ``max_abs`` rejects ('steer_out_of_range').
-    """
-    if not (stamp > 0.0 and _isfinite(stamp)):
-        return _BAD_STAMP
-    steer = speed = math.nan
-    for settings, raw in values:
-        v = _scaled(raw, settings)
-        if not _isfinite(v):
-            return _NAN
-        if settings.role == "steering":
-            if abs(v) > settings.max_abs:
-                return _STEER
-            steer = v
-        else:
-            speed = v
-    return ChassisSample(stamp, steer=steer, speed=speed)
-
-
-def scalar_stamp(msg: Any, inp: ScalarInput, receive_time: float) -> float:
-    """Header stamp [s] found by the plan, else ``receive_time`` [s]."""
-    from kinematic_monitor.io import fieldpath
-
-    sp = inp.plan.stamp_path
-    if sp is None:
-        return receive_time
-    st = fieldpath.resolve(msg, sp)
-    return stamp_seconds(int(st.sec), int(st.nanosec))
-
-
-def chassis_from_scalar_msg(
-    msg: Any, inputs: Sequence[ScalarInput], receive_time: float
-) -> ChassisSample | Rejected:
-    """Message object (rclpy or rosbags) -> ChassisSample from one or two ScalarInputs.
-
-    The stamp is that of the first input (header stamp, or ``receive_time`` [s] when the
-    message has no header). A path that fails on this message (e.g. an index beyond a
-    sequence's length) rejects with 'missing_field'.
-    """
-    from kinematic_monitor.io import fieldpath
-
-    try:
-        stamp = scalar_stamp(msg, inputs[0], receive_time)
-        values = [(i.settings, fieldpath.resolve_number(msg, i.plan.path)) for i in inputs]
-    except fieldpath.FieldPathError as exc:
-        return Rejected("missing_field", str(exc))
-    return chassis_from_scalars(stamp, values)

@@ -120,10 +120,6 @@ class OutputDir:
         with self.open_text(name) as fh:
             fh.write(text)
 
-    def final_path(self, name: str) -> Path:
-        """Where output ``name`` will be after ``commit``."""
-        return self.path / check_name(name)
-
     @property
     def pending(self) -> list[str]:
         """Names written so far and not yet committed."""

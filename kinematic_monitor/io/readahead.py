@@ -20,17 +20,24 @@ import multiprocessing
 import os
 import pickle
 from collections.abc import Callable, Iterator
+from multiprocessing.connection import Connection
 from typing import Any
 
-from kinematic_monitor.core.samples import ChassisSample, GnssSample, ImuSample, LocalizationSample
+from kinematic_monitor.core.ordering import TimeReset
+from kinematic_monitor.core.samples import (
+    ChassisSample,
+    GnssSample,
+    ImuSample,
+    LocalizationSample,
+    Sample,
+)
+from kinematic_monitor.io.sources import Progress, SampleSource
 
 # sample classes sent as field tuples: (kind, field, field, ...), kind = index here
 SAMPLE_CLASSES: tuple[type, ...] = (ImuSample, ChassisSample, LocalizationSample, GnssSample)
 OTHER = -1  # anything else: (OTHER, pickle bytes)
 BATCH = 1024  # samples per pipe message
 MIN_MESSAGES = 20_000  # below this the fork costs more than it saves (auto mode)
-# what the child reports back: the attributes iter_samples changes on the source
-BOOKKEEPING = ("position", "stats", "damage", "out_of_order", "time_jumps", "warnings")
 
 _TAG_BATCH, _TAG_PICKLED, _TAG_END, _TAG_ERROR = b"B", b"P", b"E", b"X"
 
@@ -111,7 +118,7 @@ def _maker(cls: type) -> Callable[[tuple[Any, ...]], Any]:
     return env["make"]  # type: ignore[no-any-return]
 
 
-def _child(source: Any, conn: Any) -> None:
+def _child(source: SampleSource, conn: Connection) -> None:
     """Child process: read every sample, send batches, then the bookkeeping."""
     from operator import attrgetter
 
@@ -134,7 +141,9 @@ def _child(source: Any, conn: Any) -> None:
                 send(_encode(source.position, batch, plain))
                 batch, plain = [], True
         send(_encode(source.position, batch, plain))
-        send(_TAG_END + pickle.dumps({a: getattr(source, a) for a in BOOKKEEPING}))
+        send(_TAG_END + pickle.dumps((source.position, source.stats, source.damage,
+                                      source.out_of_order, source.time_jumps,
+                                      source.warnings)))
     except BaseException as exc:  # noqa: BLE001 - every failure goes to the parent
         try:
             payload = pickle.dumps(exc)
@@ -150,8 +159,8 @@ def _child(source: Any, conn: Any) -> None:
         conn.close()
 
 
-def iter_samples(source: Any, progress: Callable[[int, int], None] | None = None,
-                 progress_every: int = 5000) -> Iterator[Any]:
+def iter_samples(source: SampleSource, progress: Progress | None = None,
+                 progress_every: int = 5000) -> Iterator[Sample | TimeReset]:
     """``source.iter_samples(progress, progress_every)`` with the reading done in a child.
 
     Yields the same samples in the same order; afterwards ``source`` carries the child's
@@ -165,7 +174,7 @@ def iter_samples(source: Any, progress: Callable[[int, int], None] | None = None
     proc.start()
     send_end.close()
     makers = [_maker(cls) for cls in SAMPLE_CLASSES]
-    total = int(getattr(source, "message_count", 0) or 0)
+    total = source.message_count
     next_report = progress_every
     loads = marshal.loads
     finished = False
@@ -188,8 +197,8 @@ def iter_samples(source: Any, progress: Callable[[int, int], None] | None = None
                     next_report = (position // progress_every + 1) * progress_every
             elif tag == _TAG_END:
                 finished = True
-                for name, value in pickle.loads(body).items():
-                    setattr(source, name, value)
+                (source.position, source.stats, source.damage, source.out_of_order,
+                 source.time_jumps, source.warnings) = pickle.loads(body)
                 if progress is not None:
                     progress(source.position, total)
                 return

@@ -11,9 +11,10 @@ REP 107 (0 OK, 1 WARN, 2 ERROR, 3 STALE).
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import math
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import IO
@@ -164,13 +165,18 @@ class Series:
         return [c[len(LEVEL_PREFIX):] for c in self.columns if c.startswith(LEVEL_PREFIX)]
 
 
-def read_timeseries(path: str | Path) -> Series:
-    """Read a CSV written by ``TimeseriesWriter`` (missing values become NaN)."""
+@contextlib.contextmanager
+def _csv_rows(path: str | Path) -> Iterator[tuple[list[str], Iterator[list[str]]]]:
+    """(header, remaining rows) of a CSV file; the header is [] for an empty file."""
     with open(path, encoding="utf-8", newline="") as fh:
         reader = csv.reader(fh)
-        try:
-            header = next(reader)
-        except StopIteration:
+        yield next(reader, []), reader
+
+
+def read_timeseries(path: str | Path) -> Series:
+    """Read a CSV written by ``TimeseriesWriter`` (missing values become NaN)."""
+    with _csv_rows(path) as (header, reader):
+        if not header:
             return Series({})
         rows = list(reader)
     return series_from_rows(header, rows)
@@ -183,11 +189,8 @@ def read_columns(path: str | Path, names: Sequence[str]) -> Series:
     skipped, missing values NaN), without converting the other columns; a name the file
     does not hold is left out.
     """
-    with open(path, encoding="utf-8", newline="") as fh:
-        reader = csv.reader(fh)
-        try:
-            header = next(reader)
-        except StopIteration:
+    with _csv_rows(path) as (header, reader):
+        if not header:
             return Series({})
         width = len(header)
         index = {h: j for j, h in enumerate(header)}

@@ -14,10 +14,12 @@ otherwise ``SingleThreadedExecutor``; choose with ``executor=`` or the environme
 ``KINEMATIC_MONITOR_EXECUTOR`` = ``auto`` | ``events`` | ``single``.
 
 Messages: the JointState, localisation, Imu and NavSatFix inputs are taken as serialized CDR
-bytes (raw subscriptions) and turned into samples by ``fastpath`` in one step, skipping
-rclpy's conversion into message objects; undecodable bytes are counted as 'malformed'.
-``messages=`` or ``KINEMATIC_MONITOR_MESSAGES`` = ``auto`` | ``raw`` | ``typed`` (``typed``:
-rclpy message objects and ``convert``, as the field-path inputs always use).
+bytes (raw subscriptions, in every ROS 2 release since Foxy) and turned into samples by the
+one decoder per type (``io.decode``), skipping rclpy's conversion into message objects;
+undecodable bytes are counted as 'malformed'. Single-value inputs with a field path
+(``inputs.steering.*``, ``inputs.speed.*``) take rclpy message objects (any message type).
+Outputs are built as CDR bytes by ``io.outgoing`` (the same bytes ``replay --write-bag``
+records) and published as serialized messages.
 """
 
 from __future__ import annotations
@@ -57,7 +59,7 @@ from sensor_msgs.msg import Imu, JointState, NavSatFix
 
 from kinematic_monitor.config import schema, validation
 from kinematic_monitor.core import ordering
-from kinematic_monitor.io import cdr, convert, event_files, fastpath
+from kinematic_monitor.io import convert, decode, event_files, outgoing, scalar_inputs
 from kinematic_monitor.ros import messages as rm
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -67,9 +69,6 @@ NODE_NAME = "kinematic_monitor"
 EXIT_OK = 0
 EXIT_BAD_PARAMS = 2
 EXECUTOR_ENV = "KINEMATIC_MONITOR_EXECUTOR"
-#: how inputs are taken: ``raw`` (serialized bytes, decoded by fastpath: the cheap default
-#: where rclpy offers raw subscriptions) or ``typed`` (rclpy message objects)
-MESSAGES_ENV = "KINEMATIC_MONITOR_MESSAGES"
 # parameters every rclpy node has; never reported as unknown
 _ROS_BUILTIN_PARAMS = ("use_sim_time", "start_type_description_service")
 _INT_LIMIT = 2**63 - 1
@@ -182,31 +181,15 @@ def make_qos(kind: str) -> QoSProfile:
                       durability=DurabilityPolicy.VOLATILE)
 
 
-def message_mode(kind: str | None = None) -> str:
-    """'raw' or 'typed' from ``kind`` or the environment variable ``MESSAGES_ENV``.
+def publish_bytes(publisher: Any, data: bytes) -> None:
+    """Publish a serialized message (``Publisher.publish`` takes bytes in the rclpy of
+    Humble, Jazzy and Kilted); where it does not, publish the deserialised object."""
+    try:
+        publisher.publish(data)
+    except TypeError:
+        from rclpy.serialization import deserialize_message
 
-    ``auto`` (the default) is 'raw' when this rclpy's create_subscription takes ``raw=``
-    (every release since Foxy), else 'typed'. StartupError naming the variable otherwise.
-    """
-    kind = (kind or os.environ.get(MESSAGES_ENV, "auto") or "auto").lower()
-    if kind not in ("auto", "raw", "typed"):
-        raise StartupError(f"{MESSAGES_ENV}={kind!r}: expected auto, raw or typed")
-    if kind == "auto":
-        import inspect
-
-        has_raw = "raw" in inspect.signature(Node.create_subscription).parameters
-        kind = "raw" if has_raw else "typed"
-    return kind
-
-
-def _malformed_as_rejected(fused: Callable[[bytes], Any]) -> Callable[[bytes], Any]:
-    """Bytes that cannot be decoded become a counted 'malformed' rejection."""
-    def conv(buf: bytes) -> Any:
-        try:
-            return fused(buf)
-        except cdr.CdrError as exc:
-            return convert.Rejected("malformed", str(exc)[:200])
-    return conv
+        publisher.publish(deserialize_message(data, publisher.msg_type))
 
 
 def _percentile(sorted_vals: Sequence[float], q: float) -> float:
@@ -224,8 +207,8 @@ class KinematicMonitorNode(Node):
 
     monitor: _Monitor
 
-    def __init__(self, *, context: Any = None, console: Callable[[str], None] | None = None,
-                 messages: str | None = None) -> None:
+    def __init__(self, *, context: Any = None, console: Callable[[str], None] | None = None
+                 ) -> None:
         kwargs: dict[str, Any] = {"allow_undeclared_parameters": False,
                                   "automatically_declare_parameters_from_overrides": False}
         if context is not None:
@@ -248,7 +231,6 @@ class KinematicMonitorNode(Node):
         # samples in stamp order waiting for their batch, and when the oldest came in
         self._batch: list[Any] = []
         self._batch_since = 0.0
-        self.message_mode = message_mode(messages)
         self._build_core()
         self._create_io()
         self.add_on_set_parameters_callback(self._on_set_parameters)
@@ -357,19 +339,8 @@ class KinematicMonitorNode(Node):
         # process than the same work warm (see bench/node_load.py)
         self._batch_size = int(cfg.inputs.batch_size)
         self._batch_delay = float(cfg.inputs.batch_delay)
-        lag = cfg.inputs.reorder_window
-        # watermark release: a sample goes out once every live input has passed its stamp
-        # (at the latest after the lag); an input silent past its timeout stops holding it
-        to = cfg.timeouts
-        topics = {"joint_states": cfg.inputs.joint_states.topic,
-                  "localization": cfg.inputs.localization.topic,
-                  "imu": cfg.inputs.imu.topic, "gnss": cfg.inputs.gnss.topic}
-        self.buffer = ordering.ReorderBuffer(
-            lag, reset_threshold=max(1.0, 2.0 * lag + 0.5),
-            # GNSS only tags positions for maps: it never holds the other inputs back
-            streams=[name for name, topic in topics.items() if topic and name != "gnss"],
-            stream_timeouts={"joint_states": to.joint_states, "localization": to.localization,
-                             "imu": to.imu}, default_timeout=1.0)
+        # the reorder buffer replay uses too (configured in one place)
+        self.buffer = ordering.input_buffer(cfg)
         js = cfg.inputs.joint_states
         self._scalar_inputs = self._plan_scalar_inputs()
         roles = {i.settings.role for group in self._scalar_inputs.values() for i in group}
@@ -395,18 +366,18 @@ class KinematicMonitorNode(Node):
                 ) from exc
             self.get_logger().info(f"event log: {os.path.abspath(path)}")
 
-    def _plan_scalar_inputs(self) -> dict[str, list[convert.ScalarInput]]:
+    def _plan_scalar_inputs(self) -> dict[str, list[scalar_inputs.ScalarInput]]:
         """Topic -> checked steering/speed inputs (message class imported by type name)."""
-        out: dict[str, list[convert.ScalarInput]] = {}
+        out: dict[str, list[scalar_inputs.ScalarInput]] = {}
         self._scalar_classes: dict[str, Any] = {}
         try:
-            for st in convert.scalar_settings(self.config.get):
+            for st in scalar_inputs.scalar_settings(self.config.get):
                 try:
                     cls = rm.import_message_class(st.type_name)
                 except ImportError as exc:
                     raise StartupError(f"{st.param_prefix}: topic {st.topic}: {exc}") from None
                 out.setdefault(st.topic, []).append(
-                    convert.plan_scalar_input(st, rm.rclpy_fields_of))
+                    scalar_inputs.plan_scalar_input(st, rm.rclpy_fields_of))
                 self._scalar_classes[st.topic] = cls
         except ValueError as exc:
             raise StartupError(str(exc)) from None
@@ -417,7 +388,7 @@ class KinematicMonitorNode(Node):
         receive_stamped = planned[0].receive_time_stamped
 
         def conv(msg: Any) -> Any:
-            got = convert.chassis_from_scalar_msg(msg, planned, self.now_sec())
+            got = scalar_inputs.chassis_from_scalar_msg(msg, planned, self.now_sec())
             if receive_stamped and not isinstance(got, convert.Rejected):
                 self.counters[f"receive_time_stamped.{name}"] += 1
             return got
@@ -430,24 +401,17 @@ class KinematicMonitorNode(Node):
         qos = make_qos(cfg.inputs.qos)
         self._subs: list[Any] = []
 
-        raw = self.message_mode == "raw"
-
         def sub(msg_type: Any, topic: str, name: str, fn: Callable[[Any], Any],
-                fused: Callable[[bytes], Any] | None = None) -> None:
+                raw: bool) -> None:
             if not topic:
                 self.get_logger().info(f"input {name}: disabled (empty topic)")
                 return
-            if raw and fused is not None:
-                # serialized CDR bytes, decoded and converted in one step (fastpath)
-                self._subs.append(self.create_subscription(
-                    msg_type, topic, self._guarded(name, _malformed_as_rejected(fused)), qos,
-                    raw=True))
-            else:
-                self._subs.append(self.create_subscription(
-                    msg_type, topic, self._guarded(name, fn), qos))
+            # standard types: serialized CDR bytes and the one decoder (io.decode)
+            self._subs.append(self.create_subscription(
+                msg_type, topic, self._guarded(name, fn), qos, raw=raw))
             self.get_logger().info(
                 f"input {name}: {topic} ({msg_type.__name__}, {cfg.inputs.qos}, "
-                f"{'raw' if raw and fused is not None else 'typed'} messages)")
+                f"{'raw' if raw else 'typed'} messages)")
 
         jmap = self.joint_map
         if jmap is None:
@@ -455,11 +419,11 @@ class KinematicMonitorNode(Node):
                                    "inputs.speed replace it)")
         else:
             sub(JointState, self._joint_states_topic, "joint_states",
-                lambda m: convert.chassis_from_msg(m, jmap, self._max_steer),
-                fastpath.joint_state_converter(jmap, self._max_steer))
+                decode.joint_state_decoder(jmap, self._max_steer), True)
         for topic, planned in self._scalar_inputs.items():
             name = "+".join(i.settings.role for i in planned)
-            sub(self._scalar_classes[topic], topic, name, self._scalar_callback(topic, name))
+            sub(self._scalar_classes[topic], topic, name, self._scalar_callback(topic, name),
+                False)
             for i in planned:
                 stamp = (f"stamp {i.plan.stamp_path}" if i.plan.stamp_path is not None
                          else "no header: receive-time stamped")
@@ -471,19 +435,17 @@ class KinematicMonitorNode(Node):
         loc = cfg.inputs.localization
         if loc.type == "pose_with_covariance":
             sub(PoseWithCovarianceStamped, loc.topic, "localization",
-                convert.localization_from_pose_msg, fastpath.pose_sample)
+                decode.pose_with_covariance_stamped, True)
         else:
-            sub(Odometry, loc.topic, "localization", convert.localization_from_odometry_msg,
-                fastpath.odometry_sample)
+            sub(Odometry, loc.topic, "localization", decode.odometry, True)
         if loc.reset_topic:
             # any message on the reset topic declares a deliberate relocalisation (REP 105:
             # map may jump); the message type is taken to be a stamped pose, as /initialpose
             self._subs.append(self.create_subscription(
                 PoseWithCovarianceStamped, loc.reset_topic,
                 self._guarded("localization_reset", self._on_reset), 10))
-        sub(Imu, cfg.inputs.imu.topic, "imu", convert.imu_from_msg, fastpath.imu_sample)
-        sub(NavSatFix, cfg.inputs.gnss.topic, "gnss", convert.gnss_from_msg,
-            fastpath.navsatfix_sample)
+        sub(Imu, cfg.inputs.imu.topic, "imu", decode.imu, True)
+        sub(NavSatFix, cfg.inputs.gnss.topic, "gnss", decode.navsatfix, True)
 
         self.pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
         self.pub_prediction = self.create_publisher(Odometry, "~/prediction", 10)
@@ -639,7 +601,8 @@ class KinematicMonitorNode(Node):
                 self.counters["event_log_errors"] += 1
                 self.get_logger().error(f"event log: {exc}", throttle_duration_sec=5.0)
         try:
-            self.pub_events.publish(rm.event_status_msg(rec))
+            publish_bytes(self.pub_events, outgoing.event_status(
+                rec.type, rec.event.to_dict(), int(rec.event.level)))
         except Exception as exc:  # context may be gone during shutdown
             self.counters["publish_errors"] += 1
             self.get_logger().debug(f"~/events: {exc}")
@@ -651,10 +614,8 @@ class KinematicMonitorNode(Node):
         pred = self.monitor.prediction()
         if pred is None:
             return
-        stamp = float(getattr(pred, "stamp", self._last_stamp))
-        self._last_prediction_stamp = stamp
-        self.pub_prediction.publish(
-            rm.prediction_odometry(pred, rm.sec_to_stamp(stamp), self.prediction_frame))
+        self._last_prediction_stamp = pred.stamp
+        publish_bytes(self.pub_prediction, outgoing.prediction(pred, self.prediction_frame))
 
     # --- diagnostics ------------------------------------------------------------------
     def statuses(self) -> list[Any]:
@@ -689,9 +650,10 @@ class KinematicMonitorNode(Node):
     def publish_diagnostics(self) -> None:
         """Publish /diagnostics now (one status per check)."""
         sts = self.statuses()
-        self._last_levels = tuple(rm.status_level(s) for s in sts)
+        self._last_levels = tuple(int(s.level) for s in sts)
         self._level_signature = self._levels()
-        self.pub_diag.publish(rm.diagnostic_array(sts, self.get_clock().now().to_msg()))
+        sec, nanosec = divmod(self.get_clock().now().nanoseconds, 1_000_000_000)
+        publish_bytes(self.pub_diag, outgoing.diagnostics(sec, nanosec, sts))
 
     def _levels(self) -> tuple[tuple[str, int], ...]:
         """The monitor's levels as numbers: far cheaper than building every status's text,

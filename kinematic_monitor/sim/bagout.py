@@ -2,7 +2,8 @@
 
 Uses ``rosbags`` (pure Python, no ROS install): rosbag2 format version 9, storage
 ``sqlite3`` or ``mcap``, message definitions from the ROS 2 Jazzy typestore (the four
-message types used here are identical in Humble, Jazzy and Kilted). Each message is
+message types used here are identical in Humble, Jazzy and Kilted); message bytes from
+the project's one CDR encoder, :mod:`kinematic_monitor.io.encode`. Each message is
 logged at its arrival time (stamp + simulated latency), as a recorder would.
 
 Folder layout written by `write_simulation` (``OUT`` is the bag folder itself)::
@@ -17,13 +18,13 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-import struct
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 
+from kinematic_monitor.io import encode
 from kinematic_monitor.sim.faults import Fault, TruthInterval, apply_faults
 from kinematic_monitor.sim.sensors import (
     ImuRecord,
@@ -60,211 +61,27 @@ def _typestore() -> Any:
     return get_typestore(Stores.ROS2_JAZZY)
 
 
-class CdrSerializer:
-    """Turns records into CDR bytes with the ``rosbags`` typestore (little endian)."""
-
-    def __init__(self, typestore: Any | None = None) -> None:
-        self.store = typestore if typestore is not None else _typestore()
-        t = self.store.types
-        self._time = t["builtin_interfaces/msg/Time"]
-        self._header = t["std_msgs/msg/Header"]
-        self._js = t["sensor_msgs/msg/JointState"]
-        self._odom = t["nav_msgs/msg/Odometry"]
-        self._pwc = t["geometry_msgs/msg/PoseWithCovariance"]
-        self._pose = t["geometry_msgs/msg/Pose"]
-        self._point = t["geometry_msgs/msg/Point"]
-        self._quat = t["geometry_msgs/msg/Quaternion"]
-        self._twc = t["geometry_msgs/msg/TwistWithCovariance"]
-        self._twist = t["geometry_msgs/msg/Twist"]
-        self._vec = t["geometry_msgs/msg/Vector3"]
-        self._imu = t["sensor_msgs/msg/Imu"]
-        self._fix = t["sensor_msgs/msg/NavSatFix"]
-        self._fix_status = t["sensor_msgs/msg/NavSatStatus"]
-        self._empty = np.zeros(0)
-
-    def _hdr(self, stamp_ns: int, frame_id: str) -> Any:
-        sec, nanosec = divmod(stamp_ns, 1_000_000_000)
-        return self._header(stamp=self._time(sec=sec, nanosec=nanosec), frame_id=frame_id)
-
-    def message(self, r: Record) -> Any:
-        """The typestore message object for one record."""
-        if isinstance(r, JointStateRecord):
-            return self._js(
-                header=self._hdr(r.stamp_ns, ""),
-                name=list(r.name),
-                position=np.array(r.position),
-                velocity=np.array(r.velocity),
-                effort=self._empty,
-            )
-        if isinstance(r, OdometryRecord):
-            px, py, pz = r.position
-            qx, qy, qz, qw = r.orientation
-            pose = self._pose(
-                position=self._point(x=px, y=py, z=pz),
-                orientation=self._quat(x=qx, y=qy, z=qz, w=qw),
-            )
-            twist = self._twist(
-                linear=self._vec(x=r.linear[0], y=r.linear[1], z=r.linear[2]),
-                angular=self._vec(x=r.angular[0], y=r.angular[1], z=r.angular[2]),
-            )
-            return self._odom(
-                header=self._hdr(r.stamp_ns, r.frame_id),
-                child_frame_id=r.child_frame_id,
-                pose=self._pwc(pose=pose, covariance=np.array(r.pose_covariance)),
-                twist=self._twc(twist=twist, covariance=np.array(r.twist_covariance)),
-            )
-        if isinstance(r, ImuRecord):
-            qx, qy, qz, qw = r.orientation
-            w, a = r.angular_velocity, r.linear_acceleration
-            return self._imu(
-                header=self._hdr(r.stamp_ns, r.frame_id),
-                orientation=self._quat(x=qx, y=qy, z=qz, w=qw),
-                orientation_covariance=np.array(r.orientation_covariance),
-                angular_velocity=self._vec(x=w[0], y=w[1], z=w[2]),
-                angular_velocity_covariance=np.array(r.angular_velocity_covariance),
-                linear_acceleration=self._vec(x=a[0], y=a[1], z=a[2]),
-                linear_acceleration_covariance=np.array(r.linear_acceleration_covariance),
-            )
-        if isinstance(r, NavSatFixRecord):
-            return self._fix(
-                header=self._hdr(r.stamp_ns, r.frame_id),
-                status=self._fix_status(status=r.status, service=r.service),
-                latitude=r.latitude,
-                longitude=r.longitude,
-                altitude=r.altitude,
-                position_covariance=np.array(r.position_covariance),
-                position_covariance_type=r.covariance_type,
-            )
-        raise TypeError(f"cannot serialise record of type {type(r).__name__}")
-
-    def serialize(self, r: Record, msgtype: str) -> memoryview:
-        """CDR bytes of one record as ``msgtype``."""
-        return self.store.serialize_cdr(self.message(r), msgtype)  # type: ignore[no-any-return]
+_NS = 1_000_000_000
 
 
-class _Layout:
-    """Builds one ``struct`` format for a message whose strings and sizes are fixed.
-
-    CDR (OMG XCDR1, little endian, as ROS 2 writes it): each primitive aligned to its own
-    size counted from the end of the 4-byte encapsulation header; a string is a uint32
-    length including the NUL, then the bytes; a sequence is a uint32 count, then items.
-    """
-
-    def __init__(self) -> None:
-        self.parts = ["<"]
-        self.offset = 0
-
-    def prim(self, code: str, count: int = 1) -> None:
-        size = struct.calcsize("<" + code)
-        pad = (-self.offset) % size
-        if pad:
-            self.parts.append(f"{pad}x")
-        self.parts.append(f"{count}{code}")
-        self.offset += pad + size * count
-
-    def string(self, text: str) -> bytes:
-        data = text.encode("utf-8") + b"\0"
-        self.prim("I")
-        self.parts.append(f"{len(data)}s")
-        self.offset += len(data)
-        return data
-
-    def build(self) -> struct.Struct:
-        return struct.Struct("".join(self.parts))
-
-
-_CDR_LE = b"\x00\x01\x00\x00"
-
-
-class FastCdrSerializer:
-    """CDR bytes for the four record types with one precompiled ``struct`` per layout.
-
-    Byte-identical to `CdrSerializer` (checked in the tests) and several times faster:
-    frame ids and joint names are constant per topic, so every offset is known ahead.
-    """
-
-    def __init__(self) -> None:
-        self._cache: dict[tuple[Any, ...], tuple[struct.Struct, tuple[Any, ...]]] = {}
-
-    def _layout(self, r: Record) -> tuple[struct.Struct, tuple[Any, ...]]:
-        """Struct and the constant arguments that follow the stamp."""
-        if isinstance(r, JointStateRecord):
-            key: tuple[Any, ...] = ("js", r.name, len(r.position), len(r.velocity))
-        elif isinstance(r, OdometryRecord):
-            key = ("odom", r.frame_id, r.child_frame_id)
-        elif isinstance(r, ImuRecord | NavSatFixRecord):
-            key = (r.key, r.frame_id)
-        else:
-            raise TypeError(f"cannot serialise record of type {type(r).__name__}")
-        hit = self._cache.get(key)
-        if hit is not None:
-            return hit
-        L = _Layout()
-        L.prim("i")
-        L.prim("I")
-        consts: list[Any] = []
-        if isinstance(r, JointStateRecord):
-            fid = L.string("")
-            consts += [len(fid), fid]
-            L.prim("I")
-            consts.append(len(r.name))
-            for name in r.name:
-                data = L.string(name)
-                consts += [len(data), data]
-            L.prim("I")  # position count; values follow
-            if r.position:
-                L.prim("d", len(r.position))
-            L.prim("I")
-            if r.velocity:
-                L.prim("d", len(r.velocity))
-            L.prim("I")  # effort: empty
-        elif isinstance(r, OdometryRecord):
-            fid = L.string(r.frame_id)
-            consts += [len(fid), fid]
-            cid = L.string(r.child_frame_id)
-            consts += [len(cid), cid]
-            L.prim("d", 3 + 4 + 36 + 3 + 3 + 36)
-        elif isinstance(r, ImuRecord):
-            fid = L.string(r.frame_id)
-            consts += [len(fid), fid]
-            L.prim("d", 4 + 9 + 3 + 9 + 3 + 9)
-        else:
-            fid = L.string(r.frame_id)
-            consts += [len(fid), fid]
-            L.prim("b")
-            L.prim("H")
-            L.prim("d", 3 + 9)
-            L.prim("B")
-        hit = (L.build(), tuple(consts))
-        self._cache[key] = hit
-        return hit
-
-    def serialize(self, r: Record, msgtype: str = "") -> bytes:
-        """CDR bytes of one record (``msgtype`` is implied by the record type)."""
-        st, consts = self._layout(r)
-        sec, nsec = divmod(r.stamp_ns, 1_000_000_000)
-        if isinstance(r, JointStateRecord):
-            args = (
-                sec, nsec, *consts,
-                len(r.position), *r.position, len(r.velocity), *r.velocity, 0,
-            )  # fmt: skip
-        elif isinstance(r, OdometryRecord):
-            args = (
-                sec, nsec, *consts, *r.position, *r.orientation, *r.pose_covariance,
-                *r.linear, *r.angular, *r.twist_covariance,
-            )  # fmt: skip
-        elif isinstance(r, ImuRecord):
-            args = (
-                sec, nsec, *consts, *r.orientation, *r.orientation_covariance,
-                *r.angular_velocity, *r.angular_velocity_covariance,
-                *r.linear_acceleration, *r.linear_acceleration_covariance,
-            )  # fmt: skip
-        else:
-            args = (
-                sec, nsec, *consts, r.status, r.service, r.latitude, r.longitude,
-                r.altitude, *r.position_covariance, r.covariance_type,
-            )  # fmt: skip
-        return _CDR_LE + st.pack(*args)
+def record_cdr(r: Record) -> bytes:
+    """CDR bytes of one record, as the message type its topic carries (``io.encode``)."""
+    sec, nanosec = divmod(r.stamp_ns, _NS)
+    if isinstance(r, JointStateRecord):
+        return encode.joint_state(sec, nanosec, "", r.name, r.position, r.velocity)
+    if isinstance(r, OdometryRecord):
+        return encode.odometry(sec, nanosec, r.frame_id, r.child_frame_id, r.position,
+                               r.orientation, r.pose_covariance, r.linear, r.angular,
+                               r.twist_covariance)
+    if isinstance(r, ImuRecord):
+        return encode.imu(sec, nanosec, r.frame_id, r.orientation, r.orientation_covariance,
+                          r.angular_velocity, r.angular_velocity_covariance,
+                          r.linear_acceleration, r.linear_acceleration_covariance)
+    if isinstance(r, NavSatFixRecord):
+        return encode.navsatfix(sec, nanosec, r.frame_id, r.status, r.service, r.latitude,
+                                r.longitude, r.altitude, r.position_covariance,
+                                r.covariance_type)
+    raise TypeError(f"cannot serialise record of type {type(r).__name__}")
 
 
 def write_bag(
@@ -291,7 +108,6 @@ def write_bag(
     if path.exists():
         raise FileExistsError(f"bag output {path} exists already")
     keys = list(only) if only is not None else list(topics)
-    ser = FastCdrSerializer()
     store = _typestore()
     counts = {k: 0 for k in keys}
     writer = Writer(path, version=BAG_VERSION, storage_plugin=plugin)
@@ -300,13 +116,13 @@ def write_bag(
         conns = {}
         for key in keys:
             topic, msgtype = topics[key]
-            conns[key] = (writer.add_connection(topic, msgtype, typestore=store), msgtype)
+            conns[key] = writer.add_connection(topic, msgtype, typestore=store)
         for r in records:
             try:
-                conn, msgtype = conns[r.key]
+                conn = conns[r.key]
             except KeyError:
                 raise ValueError(f"record for topic key {r.key!r} not among {keys}") from None
-            writer.write(conn, r.arrival_ns, ser.serialize(r, msgtype))
+            writer.write(conn, r.arrival_ns, record_cdr(r))
             counts[r.key] += 1
             if on_message is not None:
                 on_message()

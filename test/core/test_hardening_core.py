@@ -31,6 +31,9 @@ import pytest
 
 pytest.importorskip("sensor_msgs")
 
+import sample_msgs as rm  # noqa: E402
+from rclpy.serialization import serialize_message  # noqa: E402
+
 from kinematic_monitor.config import validation  # noqa: E402
 from kinematic_monitor.core import ordering  # noqa: E402
 from kinematic_monitor.core.monitor import Monitor  # noqa: E402
@@ -39,8 +42,7 @@ from kinematic_monitor.core.samples import (  # noqa: E402
     ImuSample,
     LocalizationSample,
 )
-from kinematic_monitor.io import convert  # noqa: E402
-from kinematic_monitor.ros import messages as rm  # noqa: E402
+from kinematic_monitor.io import convert, decode  # noqa: E402
 
 GEOMETRY = {"vehicle.wheelbase": 2.70, "vehicle.cg_to_rear_axle": 1.35,
             "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55}
@@ -58,22 +60,19 @@ class Pipe:
         cfg = validation.validate({**GEOMETRY, "inputs.gnss.topic": "", **extra})
         self.cfg = cfg
         self.mon = Monitor(cfg)
-        lag = cfg.inputs.reorder_window
-        to = cfg.timeouts
-        self.buf = ordering.ReorderBuffer(
-            lag, reset_threshold=max(1.0, 2.0 * lag + 0.5),
-            stream_timeouts={"joint_states": to.joint_states,
-                             "localization": to.localization, "imu": to.imu},
-            default_timeout=1.0)
+        self.buf = ordering.input_buffer(cfg)
         js = cfg.inputs.joint_states
         self.jmap = convert.JointMap(js.steering_joints, js.front_wheel_joints,
                                      js.rear_wheel_joints)
         max_steer = cfg.vehicle.max_road_wheel_angle * cfg.vehicle.steering_ratio
-        self.conv: dict[str, Callable[[Any], Any]] = {
-            "joint_states": lambda m: convert.chassis_from_msg(m, self.jmap, max_steer),
-            "localization": convert.localization_from_odometry_msg,
-            "imu": convert.imu_from_msg,
+        # the node's raw path: the message's serialized bytes through the one decoder
+        decoders: dict[str, Callable[[bytes], Any]] = {
+            "joint_states": decode.joint_state_decoder(self.jmap, max_steer),
+            "localization": decode.odometry,
+            "imu": decode.imu,
         }
+        self.conv: dict[str, Callable[[Any], Any]] = {
+            name: (lambda m, fn=fn: fn(serialize_message(m))) for name, fn in decoders.items()}
         self.rejected: Counter[tuple[str, str]] = Counter()
         self.callback_errors = 0
         self.processed = 0
@@ -377,7 +376,7 @@ def test_unnormalised_quaternion_gives_the_normalised_yaw(pipe: Pipe, scale: flo
     q = (0.0, 0.02, math.sin(yaw / 2), math.cos(yaw / 2))
     o = msg.pose.pose.orientation
     o.x, o.y, o.z, o.w = (scale * c for c in q)
-    got = convert.localization_from_odometry_msg(msg)
+    got = pipe.conv["localization"](msg)
     assert isinstance(got, LocalizationSample)
     n = math.sqrt(sum(c * c for c in q))
     # transforms3d: quaternion (w, x, y, z), 'rzyx' gives (yaw, pitch, roll) of the unit q

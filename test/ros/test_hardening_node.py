@@ -85,8 +85,9 @@ class Script:
         self.published += 1
 
     def _msg(self, name: str, stamp: float, accel: float) -> Any:
+        import sample_msgs as rm
+
         from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
-        from kinematic_monitor.ros import messages as rm
 
         if name == "joint_states":
             w = self.v / R_WHEEL
@@ -386,8 +387,9 @@ def test_bad_input_matrix_over_dds(setup: tuple[Proc, Script], tmp_path: Path) -
 
     def wrong_type(name: str, msg: Any, st: float) -> Any:
         if name == "localization":
+            import sample_msgs as rm
+
             from kinematic_monitor.core.samples import ImuSample
-            from kinematic_monitor.ros import messages as rm
 
             wrong.publish(rm.imu_msg(ImuSample(st, 0.0, 0.0, 0.0)))
             return None
@@ -424,7 +426,7 @@ def test_bad_input_matrix_over_dds(setup: tuple[Proc, Script], tmp_path: Path) -
     assert not [n for n, v in lv.items() if v == STALE], lv
     stale_ev = [e for e in lis.events[n_ev:] if "input_stale" in e.name]
     assert stale_ev, "the silence raises input_stale events"
-    phases = [{kv.key: kv.value for kv in e.values}.get("phase") for e in stale_ev]
+    phases = [{kv.key: kv.value for kv in e.values}.get("type") for e in stale_ev]
     assert "end" in phases, phases  # and they end on recovery
 
     # minutes of standstill and reverse driving are a core row; here a few seconds each

@@ -192,7 +192,7 @@ def test_localization_jump_raises_event_on_topic_and_log(run: Run) -> None:
     ev = next(e for e in lis.events if "localization_fault" in e.name)
     assert ev.name.startswith("kinematic_monitor: ")
     assert ev.level in (bytes([WARN]), bytes([ERROR]))
-    assert {kv.key for kv in ev.values} >= {"phase", "kind", "start", "detected_at"}
+    assert {kv.key for kv in ev.values} >= {"type", "kind", "start", "detected_at"}
     # the log is flushed at each start: readable while the node still runs
     log = run.tmp / "events.jsonl"
     recs = [json.loads(line) for line in log.read_text().splitlines() if line.strip()]
@@ -238,11 +238,12 @@ def test_console_script_entry_exists() -> None:
 # --- message conversions (in-process, no DDS traffic) ------------------------------------
 
 def test_odometry_round_trip_and_quaternion_against_transforms3d() -> None:
+    import sample_msgs as rm
+    from rclpy.serialization import serialize_message
     from transforms3d.euler import euler2quat
 
     from kinematic_monitor.core.samples import LocalizationSample
-    from kinematic_monitor.io import convert
-    from kinematic_monitor.ros import messages as rm
+    from kinematic_monitor.io import convert, decode
 
     yaw = 2.5  # rad, REP 103: counter-clockwise about +z
     cov = (0.01, 0.002, 0.0, 0.002, 0.04, 0.0, 0.0, 0.0, 0.0009)
@@ -255,7 +256,7 @@ def test_odometry_round_trip_and_quaternion_against_transforms3d() -> None:
     # nav_msgs/Odometry covariance: 6x6 row-major over (x, y, z, roll, pitch, yaw)
     assert msg.pose.covariance[0 * 6 + 1] == pytest.approx(0.002)
     assert msg.pose.covariance[5 * 6 + 5] == pytest.approx(0.0009)
-    back = convert.localization_from_odometry_msg(msg)
+    back = decode.odometry(serialize_message(msg))
     assert not isinstance(back, convert.Rejected)
     assert back.stamp == pytest.approx(s.stamp, abs=1e-6)  # float64 spacing at 1.8e9 s
     assert back.yaw == pytest.approx(yaw - 2 * math.pi if yaw > math.pi else yaw)
@@ -263,15 +264,25 @@ def test_odometry_round_trip_and_quaternion_against_transforms3d() -> None:
 
 
 def test_event_status_levels_follow_rep107() -> None:
+    from diagnostic_msgs.msg import DiagnosticStatus
+    from rclpy.serialization import deserialize_message
+
     from kinematic_monitor.core import events
+    from kinematic_monitor.io import outgoing
     from kinematic_monitor.ros import messages as rm
+
+    def status(tr: events.Transition) -> DiagnosticStatus:
+        # the bytes the node publishes, read back by rclpy's own deserialiser
+        data = outgoing.event_status(tr.type, tr.event.to_dict(), int(tr.event.level))
+        return deserialize_message(data, DiagnosticStatus)
 
     ev = events.Event(start=10.0, detected_at=10.2, kind="lateral_slip", level=events.ERROR,
                       summary="understeer")
-    start = rm.event_status_msg(events.Transition("start", ev))
+    start = status(events.Transition("start", ev))
     assert start.level == bytes([ERROR]) and start.name == "kinematic_monitor: event lateral_slip"
+    assert {kv.key: kv.value for kv in start.values}["type"] == "start"
     ev.end = 11.0
-    end = rm.event_status_msg(events.Transition("end", ev))
+    end = status(events.Transition("end", ev))
     assert end.level == bytes([OK])  # the episode is over
     assert rm.event_console_line(events.Transition("start", ev), t0=0.0).startswith(
         "[10.20 s] ERROR lateral_slip: understeer")
@@ -317,13 +328,13 @@ SCALAR_EXTRA = """\
 
 @needs_core
 def test_float64_steering_and_field_path_speed_over_dds(run: Run) -> None:
+    import sample_msgs as rm
     from geometry_msgs.msg import Vector3Stamped
     from nav_msgs.msg import Odometry
     from rclpy.qos import qos_profile_sensor_data
     from std_msgs.msg import Float64
 
     from kinematic_monitor.core.samples import LocalizationSample
-    from kinematic_monitor.ros import messages as rm
 
     params = write_params(run.tmp / "p.yaml", extra=SCALAR_EXTRA.format(field="vector.z"))
     node = run.node(params, executor="single")

@@ -18,7 +18,8 @@ from rosbags.typesys import Stores, get_typestore
 from kinematic_monitor.config import schema, validation
 from kinematic_monitor.core.samples import ChassisSample
 from kinematic_monitor.io import convert as cv
-from kinematic_monitor.io.bag import _typestore_fields
+from kinematic_monitor.io import scalar_inputs as si
+from kinematic_monitor.io.scalar_inputs import typestore_fields
 
 TS = get_typestore(Stores.ROS2_HUMBLE)
 T = TS.types
@@ -26,9 +27,9 @@ GEOMETRY = {"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
             "vehicle.wheel_radius": 0.31, "vehicle.track_width": 1.55}
 
 
-def settings(**values: object) -> list[cv.ScalarSettings]:
+def settings(**values: object) -> list[si.ScalarSettings]:
     cfg = validation.validate({**GEOMETRY, **values})
-    return cv.scalar_settings(cfg.get)
+    return si.scalar_settings(cfg.get)
 
 
 def test_disabled_by_default() -> None:
@@ -47,7 +48,7 @@ def test_steering_wheel_angle_in_degrees_divided_by_ratio() -> None:
     # 270 deg at the steering wheel with ratio 15 -> 18 deg road-wheel angle
     (st,) = settings(**{"inputs.steering.topic": "/s", "inputs.steering.kind": "steering_wheel",
                         "inputs.steering.scale": math.pi / 180, "vehicle.steering_ratio": 15.0})
-    got = cv.chassis_from_scalars(10.0, [(st, 270.0)])
+    got = si.chassis_from_scalars(10.0, [(st, 270.0)])
     assert isinstance(got, ChassisSample)
     assert got.steer == pytest.approx(math.radians(18.0)) and math.isnan(got.speed)
 
@@ -55,7 +56,7 @@ def test_steering_wheel_angle_in_degrees_divided_by_ratio() -> None:
 def test_offset_added_after_scale_and_speed_in_kmh() -> None:
     (sp,) = settings(**{"inputs.speed.topic": "/v", "inputs.speed.scale": 1 / 3.6,
                         "inputs.speed.offset": 0.5})
-    got = cv.chassis_from_scalars(10.0, [(sp, 36.0)])
+    got = si.chassis_from_scalars(10.0, [(sp, 36.0)])
     assert isinstance(got, ChassisSample) and got.speed == pytest.approx(10.5)
     assert math.isnan(got.steer)
 
@@ -66,16 +67,16 @@ def test_offset_added_after_scale_and_speed_in_kmh() -> None:
 ])
 def test_rejections(stamp: float, raw: float, reason: str) -> None:
     (st,) = settings(**{"inputs.steering.topic": "/s"})  # max_road_wheel_angle 0.7 rad
-    got = cv.chassis_from_scalars(stamp, [(st, raw)])
+    got = si.chassis_from_scalars(stamp, [(st, raw)])
     assert isinstance(got, cv.Rejected) and got.reason == reason and reason in cv.REASONS
 
 
 def test_message_conversion_header_or_receive_time() -> None:
-    fields = _typestore_fields(TS)
-    st, sp = (cv.plan_scalar_input(s, fields) for s in settings(
+    fields = typestore_fields(TS)
+    st, sp = (si.plan_scalar_input(s, fields) for s in settings(
         **{"inputs.steering.topic": "/s", "inputs.speed.topic": "/v"}))
     assert st.receive_time_stamped and not sp.receive_time_stamped
-    got = cv.chassis_from_scalar_msg(T["std_msgs/msg/Float64"](data=0.1), [st], 123.5)
+    got = si.chassis_from_scalar_msg(T["std_msgs/msg/Float64"](data=0.1), [st], 123.5)
     assert isinstance(got, ChassisSample) and (got.stamp, got.steer) == (123.5, 0.1)
     Vec = T["geometry_msgs/msg/Vector3"]
     tw = T["geometry_msgs/msg/TwistStamped"](
@@ -83,12 +84,12 @@ def test_message_conversion_header_or_receive_time() -> None:
             stamp=T["builtin_interfaces/msg/Time"](sec=1_800_000_000, nanosec=250_000_000),
             frame_id="base_link"),
         twist=T["geometry_msgs/msg/Twist"](linear=Vec(7.0, 0.0, 0.0), angular=Vec(0, 0, 0)))
-    got = cv.chassis_from_scalar_msg(tw, [sp], 99.0)
+    got = si.chassis_from_scalar_msg(tw, [sp], 99.0)
     assert isinstance(got, ChassisSample)
     assert got.stamp == pytest.approx(1_800_000_000.25) and got.speed == 7.0
     tw.header.stamp.sec = 0  # zero stamp -> rejected, not replaced by the receive time
     tw.header.stamp.nanosec = 0
-    got = cv.chassis_from_scalar_msg(tw, [sp], 99.0)
+    got = si.chassis_from_scalar_msg(tw, [sp], 99.0)
     assert isinstance(got, cv.Rejected) and got.reason == "bad_stamp"
 
 
@@ -100,19 +101,19 @@ def test_steering_and_speed_from_one_message_type() -> None:
     cfg.update({"inputs.steering.topic": "/report", "inputs.speed.topic": "/report",
                 "inputs.steering.field": "position[0]", "inputs.speed.field": "velocity[0]",
                 "inputs.joint_states.topic": "/unused_joint_states"})
-    fields = _typestore_fields(TS)
-    planned = [cv.plan_scalar_input(s, fields) for s in settings(**cfg)]
+    fields = typestore_fields(TS)
+    planned = [si.plan_scalar_input(s, fields) for s in settings(**cfg)]
     import numpy as np
 
     msg = T["sensor_msgs/msg/JointState"](
         header=T["std_msgs/msg/Header"](
             stamp=T["builtin_interfaces/msg/Time"](sec=20, nanosec=0), frame_id=""),
         name=["x"], position=np.array([0.05]), velocity=np.array([4.0]), effort=np.array([]))
-    got = cv.chassis_from_scalar_msg(msg, planned, 1.0)
+    got = si.chassis_from_scalar_msg(msg, planned, 1.0)
     assert isinstance(got, ChassisSample) and (got.stamp, got.steer, got.speed) == (20.0, 0.05,
                                                                                   4.0)
     msg.position = np.array([])  # sequence too short for this message: counted rejection
-    got = cv.chassis_from_scalar_msg(msg, planned, 1.0)
+    got = si.chassis_from_scalar_msg(msg, planned, 1.0)
     assert isinstance(got, cv.Rejected) and got.reason == "missing_field"
 
 
@@ -150,7 +151,7 @@ def test_joint_map_wheels_only() -> None:
 ])
 def test_rclpy_type_lookup_agrees_with_rosbags(type_name: str) -> None:
     rm = pytest.importorskip("kinematic_monitor.ros.messages")
-    assert rm.rclpy_fields_of(type_name) == _typestore_fields(TS)(type_name)
+    assert rm.rclpy_fields_of(type_name) == typestore_fields(TS)(type_name)
 
 
 def test_import_message_class_errors_name_the_type() -> None:

@@ -1,11 +1,12 @@
-"""fastpath (fused decode + convert) checked against cdr + convert, message by message.
+"""The one decoder per type (io.decode) checked against the reference path, message by message.
 
 References: messages are encoded by rosbags' ``serialize_cdr`` (Stores.ROS2_HUMBLE message
 definitions, both byte orders; OMG XCDR1 as used by ROS 2), so the byte layout comes from
-outside the project. Every result must equal what the two-step path gives: the rosbags
-message object through ``convert.*_from_msg`` and the bytes through ``cdr.decode_*`` +
-``convert.*_from_fields``: the same sample (every field, NaN-aware), or the same Rejected
-(reason and detail), or CdrError for the same buffers. Values are drawn to hit every branch:
+outside the project. Every result must equal what the reference path gives (test/oracles.py):
+the rosbags message object through the message-object converters and the bytes through the
+full reference decoders + the rules of ``convert``: the same sample (every field,
+NaN-aware), or the same Rejected (reason and detail), or a 'malformed' rejection for the
+buffers the reference decoders refuse. Values are drawn to hit every branch:
 bad stamps, NaN/inf in used and unused fields, covariance flags of -1 (sensor_msgs/Imu
 definition: quantity absent), zero quaternions, frames inside and outside REP 105's world
 frames, missing/duplicate/reordered joints and length mismatches.
@@ -20,11 +21,13 @@ import random
 from typing import Any
 
 import numpy as np
+import oracles
 import pytest
 from rosbags.typesys import Stores, get_typestore
 
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
-from kinematic_monitor.io import cdr, convert, fastpath
+from kinematic_monitor.io import convert, decode
+from kinematic_monitor.io.cdr import CdrError
 from kinematic_monitor.io.convert import JointMap, Rejected
 
 TS = get_typestore(Stores.ROS2_HUMBLE)
@@ -33,7 +36,7 @@ Header, Time = T["std_msgs/msg/Header"], T["builtin_interfaces/msg/Time"]
 Vec, Quat, Point = (T["geometry_msgs/msg/Vector3"], T["geometry_msgs/msg/Quaternion"],
                     T["geometry_msgs/msg/Point"])
 
-JS, ODOM, POSE, IMU, NAV = fastpath.FUSED_TYPES
+JS, ODOM, POSE, IMU, NAV = decode.DECODED_TYPES
 STEER = ("fl_steer", "fr_steer")
 FRONT = ("fl_wheel", "fr_wheel")
 REAR = ("rl_wheel", "rr_wheel")
@@ -166,39 +169,39 @@ JMAP = JointMap(STEER, FRONT, REAR)
 
 
 def two_step(kind: str, buf: bytes, jmap: JointMap = JMAP) -> object:
-    """cdr.decode_* + convert.*_from_fields: what the bag reader did before fastpath."""
+    """The full reference decoders + the rules of convert on the decoded fields."""
     st = convert.stamp_seconds
     if kind == JS:
-        f = cdr.decode_joint_state(buf)
+        f = oracles.decode_joint_state(buf)
         return convert.chassis_from_joint_state(st(f.sec, f.nanosec), f.names, f.positions,
                                                 f.velocities, jmap, MAX_STEER)
     if kind == ODOM:
-        o = cdr.decode_odometry(buf)
+        o = oracles.decode_odometry(buf)
         return convert.localization_from_odometry(
             st(o.sec, o.nanosec), o.frame_id, o.position, o.orientation, o.pose_covariance,
             o.linear, o.angular, o.twist_covariance)
     if kind == POSE:
-        p = cdr.decode_pose_with_covariance_stamped(buf)
+        p = oracles.decode_pose_with_covariance_stamped(buf)
         return convert.localization_from_pose(st(p.sec, p.nanosec), p.frame_id, p.position,
                                               p.orientation, p.pose_covariance)
     if kind == IMU:
-        i = cdr.decode_imu(buf)
+        i = oracles.decode_imu(buf)
         return convert.imu_from_fields(
             st(i.sec, i.nanosec), i.orientation, i.orientation_covariance, i.angular_velocity,
             i.angular_velocity_covariance, i.linear_acceleration,
             i.linear_acceleration_covariance)
-    g = cdr.decode_navsatfix(buf)
+    g = oracles.decode_navsatfix(buf)
     return convert.gnss_from_fields(st(g.sec, g.nanosec), g.status, g.latitude, g.longitude,
                                     g.altitude)
 
 
 def from_msg(kind: str, msg: object, jmap: JointMap = JMAP) -> object:
-    """convert.*_from_msg on the rosbags object (no cdr involved)."""
+    """The message-object converters on the rosbags object (no CDR involved)."""
     if kind == JS:
-        return convert.chassis_from_msg(msg, jmap, MAX_STEER)
-    return {ODOM: convert.localization_from_odometry_msg,
-            POSE: convert.localization_from_pose_msg,
-            IMU: convert.imu_from_msg, NAV: convert.gnss_from_msg}[kind](msg)
+        return oracles.chassis_from_msg(msg, jmap, MAX_STEER)
+    return {ODOM: oracles.localization_from_odometry_msg,
+            POSE: oracles.localization_from_pose_msg,
+            IMU: oracles.imu_from_msg, NAV: oracles.gnss_from_msg}[kind](msg)
 
 
 def key(result: object) -> tuple[object, ...]:
@@ -210,17 +213,22 @@ def key(result: object) -> tuple[object, ...]:
             *(repr(getattr(result, f.name)) for f in dataclasses.fields(result)))
 
 
-def fused(kind: str, jmap: JointMap = JMAP) -> fastpath.Converter:
-    return fastpath.converter_for(kind, jmap, MAX_STEER)
+def fused(kind: str, jmap: JointMap = JMAP) -> decode.Decoder:
+    return decode.decoder_for(kind, jmap, MAX_STEER)
+
+
+def malformed(got: object) -> bool:
+    """A counted 'malformed' rejection saying what was wrong."""
+    return isinstance(got, Rejected) and got.reason == "malformed" and bool(got.detail)
 
 
 # ---- tests -------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("little", [True, False], ids=["le", "be"])
-@pytest.mark.parametrize("kind", fastpath.FUSED_TYPES)
+@pytest.mark.parametrize("kind", decode.DECODED_TYPES)
 def test_random_messages_match_two_step_path(kind: str, little: bool) -> None:
-    # reference encoder: rosbags serialize_cdr; reference result: cdr + convert and
-    # convert.*_from_msg on the decoded-by-nobody message object
+    # reference encoder: rosbags serialize_cdr; reference result: the full decoders +
+    # convert, and the message-object converters on the decoded-by-nobody object
     rng = random.Random(hash((kind, little)) & 0xFFFF)
     conv = fused(kind)
     reasons: set[str] = set()
@@ -242,7 +250,7 @@ def test_random_messages_match_two_step_path(kind: str, little: bool) -> None:
 
 
 def test_every_rejection_reason_is_reached_and_matches() -> None:
-    # crafted cases: one message per reason a fused converter can give (convert.REASONS)
+    # crafted cases: one message per reason a decoder can give (convert.REASONS)
     def hdr(frame: str = "map", sec: int = 100, ns: int = 5) -> Any:
         return Header(stamp=Time(sec=sec, nanosec=ns), frame_id=frame)
 
@@ -311,10 +319,9 @@ def test_every_rejection_reason_is_reached_and_matches() -> None:
                 assert isinstance(got, Rejected) and got.reason == reason, (reason, kind, got)
                 assert key(got) == key(two_step(kind, buf)) == key(from_msg(kind, msg))
     # 'malformed': bytes that cannot be decoded (see the truncation test below)
-    with pytest.raises(cdr.CdrError):
-        fastpath.imu_sample(b"\x00\x01\x00\x00\x01")
-    # the reasons a fused converter can give are all covered above
-    fused_reasons = set(convert.REASONS) - {"missing_field"}  # field paths: typed only
+    assert malformed(decode.imu(b"\x00\x01\x00\x00\x01"))
+    # the reasons a decoder can give are all covered above
+    fused_reasons = set(convert.REASONS) - {"missing_field"}  # field paths only
     assert fused_reasons == set(cases) | {"malformed"}
 
 
@@ -327,12 +334,12 @@ def test_absent_imu_quantities_and_accepted_samples() -> None:
                 angular_velocity_covariance=np.zeros(9))
     ocov = np.zeros(9)
     ocov[0] = -1.0
-    got = fastpath.imu_sample(bytes(TS.serialize_cdr(
+    got = decode.imu(bytes(TS.serialize_cdr(
         T[IMU](**base, orientation_covariance=ocov, linear_acceleration_covariance=ocov), IMU)))
     assert isinstance(got, ImuSample)
     assert got.stamp == 7.5 and got.yaw_rate == 0.2
     assert math.isnan(got.yaw) and math.isnan(got.ax) and math.isnan(got.ay)
-    got = fastpath.imu_sample(bytes(TS.serialize_cdr(
+    got = decode.imu(bytes(TS.serialize_cdr(
         T[IMU](**base, orientation_covariance=np.zeros(9),
                linear_acceleration_covariance=np.zeros(9)), IMU)))
     assert isinstance(got, ImuSample)
@@ -340,7 +347,7 @@ def test_absent_imu_quantities_and_accepted_samples() -> None:
     assert got.yaw == pytest.approx(0.5, abs=1e-12) and (got.ax, got.ay) == (1.0, -0.5)
 
 
-@pytest.mark.parametrize("kind", fastpath.FUSED_TYPES)
+@pytest.mark.parametrize("kind", decode.DECODED_TYPES)
 def test_truncated_and_corrupt_buffers_fail_alike(kind: str) -> None:
     rng = random.Random(5)
     conv = fused(kind)
@@ -351,32 +358,30 @@ def test_truncated_and_corrupt_buffers_fail_alike(kind: str) -> None:
             short = buf[:cut]
             try:
                 want = key(two_step(kind, short))
-            except cdr.CdrError:
-                with pytest.raises(cdr.CdrError):
-                    conv(short)
+            except CdrError:
+                assert malformed(conv(short)), cut
                 continue
             assert key(conv(short)) == want  # cut only in the unused tail (efforts)
-        # invalid UTF-8 in the frame_id: cdr refuses it, so must fastpath
+        # invalid UTF-8 in the frame_id: the reference refuses it, so must the decoder
         bad = bytearray(buf)
         if bad[16:20] != b"\x00" * 4 and bad[12] > 1:
             bad[16] = 0xFF
-            with pytest.raises(cdr.CdrError):
+            with pytest.raises(CdrError):
                 two_step(kind, bytes(bad))
-            with pytest.raises(cdr.CdrError):
-                conv(bytes(bad))
-    with pytest.raises(cdr.CdrError, match="encapsulation"):
-        conv(b"\x01\x07\x00\x00" + b"\x00" * 200)
+            assert malformed(conv(bytes(bad)))
+    got = conv(b"\x01\x07\x00\x00" + b"\x00" * 200)
+    assert malformed(got) and "encapsulation" in got.detail  # type: ignore[union-attr]
 
 
 def test_joint_configurations_without_steering_or_rear_wheels() -> None:
     # the inline path covers steering + 4 wheels (any steering ratio); other maps go
-    # through convert
+    # through the rules of convert
     rng = random.Random(9)
     maps = [JointMap((), FRONT, REAR), JointMap(STEER, FRONT), JointMap(STEER, (), REAR),
             JointMap(STEER)]
     maps.append(JointMap(STEER, FRONT, REAR, steering_ratio=1.5))  # steering-wheel joints
     for jmap in maps:
-        conv = fastpath.joint_state_converter(jmap, MAX_STEER)
+        conv = decode.joint_state_decoder(jmap, MAX_STEER)
         for _ in range(100):
             buf = bytes(TS.serialize_cdr(make(JS, rng), JS))
             assert key(conv(buf)) == key(two_step(JS, buf, jmap))
@@ -398,7 +403,7 @@ def test_name_block_cache_follows_changing_names() -> None:
         assert got.wheel_rear_right == 10.0 + rot.index("rr_wheel")
 
 
-def test_samples_built_by_fastpath_are_ordinary_dataclass_instances() -> None:
+def test_samples_built_by_the_decoder_are_ordinary_dataclass_instances() -> None:
     buf = bytes(TS.serialize_cdr(T[ODOM](
         header=Header(stamp=Time(sec=3, nanosec=0), frame_id="/odom"), child_frame_id="b",
         pose=T["geometry_msgs/msg/PoseWithCovariance"](
@@ -409,7 +414,7 @@ def test_samples_built_by_fastpath_are_ordinary_dataclass_instances() -> None:
             twist=T["geometry_msgs/msg/Twist"](linear=Vec(4.0, 0.5, 0.0),
                                                angular=Vec(0.0, 0.0, 0.1)),
             covariance=np.eye(6).ravel() * 2.0)), ODOM))
-    got = fastpath.odometry_sample(buf)
+    got = decode.odometry(buf)
     want = LocalizationSample(3.0, 1.0, 2.0, 0.0, 4.0, 0.5, 0.1, "odom",
                               (1.0, 0, 0, 0, 1.0, 0, 0, 0, 1.0),
                               (2.0, 0, 0, 0, 2.0, 0, 0, 0, 2.0))
@@ -419,11 +424,11 @@ def test_samples_built_by_fastpath_are_ordinary_dataclass_instances() -> None:
         got.x = 1.0  # type: ignore[misc]
 
 
-def test_converter_for_names_bad_requests() -> None:
+def test_decoder_for_names_bad_requests() -> None:
     with pytest.raises(ValueError, match="std_msgs/msg/Float64"):
-        fastpath.converter_for("std_msgs/msg/Float64")
+        decode.decoder_for("std_msgs/msg/Float64")
     with pytest.raises(ValueError, match="JointMap"):
-        fastpath.converter_for(JS)
+        decode.decoder_for(JS)
 
 
 # ---- the node's raw path -----------------------------------------------------------------
@@ -446,9 +451,9 @@ def _rclpy_messages(rng: random.Random) -> list[tuple[str, Any]]:
     return out
 
 
-def test_rclpy_serialized_bytes_match_typed_conversion() -> None:
+def test_rclpy_serialized_bytes_match_the_message_object_path() -> None:
     # what a raw subscription hands over: rclpy's serialize_message output (the rmw's CDR);
-    # the fused result must equal convert.*_from_msg on the rclpy message object (typed mode)
+    # the decoder's result must equal the message-object converters on the rclpy object
     rclpy_ser = pytest.importorskip("rclpy.serialization")
     rng = random.Random(21)
     n_ok = 0
@@ -460,27 +465,44 @@ def test_rclpy_serialized_bytes_match_typed_conversion() -> None:
     assert n_ok > 50
 
 
-def test_message_mode_switch_and_malformed_counting(monkeypatch: pytest.MonkeyPatch) -> None:
+def test_node_publishes_bytes_with_a_fallback_for_old_rclpy() -> None:
+    # rclpy's Publisher.publish takes serialized bytes; an rclpy whose publish refuses them
+    # (TypeError) gets the message object rclpy itself deserialises from the same bytes
     node = pytest.importorskip("kinematic_monitor.ros.node")
-    monkeypatch.delenv(node.MESSAGES_ENV, raising=False)
-    assert node.message_mode() == "raw"  # create_subscription(raw=...) exists since Foxy
-    assert node.message_mode("typed") == "typed"
-    monkeypatch.setenv(node.MESSAGES_ENV, "typed")
-    assert node.message_mode() == "typed"
-    monkeypatch.setenv(node.MESSAGES_ENV, "bytes")
-    with pytest.raises(node.StartupError, match="KINEMATIC_MONITOR_MESSAGES='bytes'"):
-        node.message_mode()
-    conv = node._malformed_as_rejected(fastpath.imu_sample)
-    got = conv(b"\x00\x01\x00\x00\x05")
-    assert isinstance(got, Rejected) and got.reason == "malformed" and got.detail
+    rclpy_ser = pytest.importorskip("rclpy.serialization")
+    from diagnostic_msgs.msg import DiagnosticStatus
+
+    from kinematic_monitor.io import encode
+
+    data = encode.diagnostic_status(2, "kinematic_monitor: x", "m", "hw", [("k", "v")])
+
+    class Old:
+        msg_type = DiagnosticStatus
+        sent: list[object] = []
+
+        def publish(self, msg: object) -> None:
+            if isinstance(msg, bytes):
+                raise TypeError("Expected DiagnosticStatus, got bytes")
+            self.sent.append(msg)
+
+    class New(Old):
+        def publish(self, msg: object) -> None:
+            self.sent.append(msg)
+
+    old, new = Old(), New()
+    old.sent, new.sent = [], []
+    node.publish_bytes(old, data)
+    node.publish_bytes(new, data)
+    assert new.sent == [data]
+    (msg,) = old.sent
+    assert msg == rclpy_ser.deserialize_message(data, DiagnosticStatus)
+    assert msg.level == b"\x02" and msg.values[0].key == "k"  # type: ignore[attr-defined]
 
 
 @pytest.mark.dds
-@pytest.mark.parametrize("mode", ["raw", "typed"])
-def test_node_takes_every_message_in_both_modes(tmp_path: object, mode: str,
-                                                monkeypatch: pytest.MonkeyPatch) -> None:
+def test_node_takes_every_message_as_bytes(tmp_path: object) -> None:
     # over real DDS (localhost, own domain): the node's own counters report every published
-    # message received and none rejected, whichever way messages are taken
+    # message received (serialized bytes through the decoders) and none rejected
     pytest.importorskip("rclpy")
     import time
     from pathlib import Path
@@ -488,7 +510,6 @@ def test_node_takes_every_message_in_both_modes(tmp_path: object, mode: str,
     from dds_helpers import Listener, new_domain_id, start_node, start_publisher, write_params
 
     work = Path(str(tmp_path))
-    monkeypatch.setenv("KINEMATIC_MONITOR_MESSAGES", mode)  # start_node copies os.environ
     # reliable QoS on both ends: every message must arrive, so the counts can be exact
     # (best effort may drop one on a busy machine, which is not what this test is about)
     params = write_params(work / "p.yaml", extra='    inputs:\n      qos: reliable\n'
@@ -501,7 +522,7 @@ def test_node_takes_every_message_in_both_modes(tmp_path: object, mode: str,
         deadline = time.monotonic() + 20
         while "running (" not in node.output() and time.monotonic() < deadline:
             time.sleep(0.05)
-        assert f"{mode} messages" in node.output(), node.output()
+        assert "raw messages" in node.output(), node.output()
         pub = start_publisher(domain, work, "--duration", "2.0", "--reliable")
         assert pub.wait(timeout=20) == 0, pub.output()
         published = pub.output().strip().splitlines()[-1]

@@ -11,10 +11,9 @@ import random
 import string
 
 import numpy as np
+import oracles as cdr
 import pytest
 from rosbags.typesys import Stores, get_typestore
-
-from kinematic_monitor.io import cdr
 
 TS = get_typestore(Stores.ROS2_HUMBLE)
 T = TS.types
