@@ -33,7 +33,7 @@ from kinematic_monitor.core.ordering import TimeReset
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample, Sample
 from kinematic_monitor.io.outputs import OutputDir, OutputDirError
 from kinematic_monitor.io.sources import SampleSource
-from kinematic_monitor.io.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter
+from kinematic_monitor.io.timeseries import DEFAULT_MIN_INTERVAL, Series, TimeseriesWriter
 
 if TYPE_CHECKING:  # pragma: no cover - typing only (the core is imported when it runs)
     from kinematic_monitor.core.checks.base import CheckStatus
@@ -117,6 +117,10 @@ class RunResult:
     counters: dict[str, int] = field(default_factory=dict)
     outputs: list[str] = field(default_factory=list)
     elapsed: float = 0.0  # [s] wall time
+    #: (stamp [s], latitude, longitude [deg]) of the GNSS fixes, sorted by stamp
+    fixes: list[tuple[float, float, float]] = field(default_factory=list)
+    #: the drive's path, decimated: [[x, y], ...] [m] in the localisation frame
+    track: list[list[float]] = field(default_factory=list)
 
     def summary(self) -> dict[str, Any]:
         """The ``--json-summary`` object."""
@@ -185,6 +189,7 @@ class _Recorder:
         self._steer_from: ChassisSample | None = None
         self._loc_from: LocalizationSample | None = None
         self.samples = 0
+        self.covered = 0.0  # [s] stamp time of earlier timelines (backward jumps)
         self.transitions: list[tuple[str, dict[str, Any], int]] = []
         self.keep_rows = keep_rows
         # (stamp, statuses or None, prediction) for --write-bag
@@ -194,7 +199,10 @@ class _Recorder:
         self.last_statuses: list[CheckStatus] = []
         self.channels: list[str] = []
 
-    def feed(self, sample: Any) -> None:
+    def feed(self, sample: Sample | TimeReset) -> None:
+        if isinstance(sample, TimeReset):
+            self._new_timeline(sample)
+            return
         stamp = sample.stamp
         self._process(sample)
         self.samples += 1
@@ -202,8 +210,7 @@ class _Recorder:
             self.first = stamp
         if not (stamp <= self.last):
             self.last = stamp
-        cls = type(sample)
-        if cls is ImuSample or (cls is not ChassisSample and isinstance(sample, ImuSample)):
+        if isinstance(sample, ImuSample):
             ax, ay = sample.ax, sample.ay
             if _isfinite(ax) and _isfinite(ay):
                 a = _hypot(ax, ay)
@@ -221,6 +228,22 @@ class _Recorder:
             else:
                 self.next_row = stamp + self.interval
             self.row(stamp)
+
+    def _new_timeline(self, marker: TimeReset) -> None:
+        """Stamps jumped back: the monitor resets; rows start afresh on the new timeline."""
+        self.monitor.process(marker)
+        if _isfinite(self.first) and _isfinite(self.last):
+            self.covered += self.last - self.first
+        self.first = self.last = math.nan
+        self.next_row = -math.inf
+        if self.writer is not None:
+            self.writer.break_window()
+
+    @property
+    def duration(self) -> float:
+        """Header-stamp time covered [s], summed over timelines."""
+        now = self.last - self.first if _isfinite(self.first) and _isfinite(self.last) else 0.0
+        return self.covered + max(0.0, now)
 
     def row(self, stamp: float, final: bool = False) -> None:
         """Take the monitor's check figures and estimate now and add one time-series row.
@@ -448,18 +471,17 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
             events_to_csv(events, fh)
         result.events = doc["events"]
         result.samples = rec.samples
-        result.duration = max(0.0, rec.last - rec.first) if math.isfinite(rec.first) else 0.0
+        result.duration = rec.duration
         result.lost = _lost_data(source)
         result.counters = _counters(monitor, source)
+        result.fixes = sorted((f.stamp, f.latitude, f.longitude) for f in source.fixes)
 
         from kinematic_monitor.apps.report import drive_distance
-        from kinematic_monitor.io.timeseries import read_columns, read_timeseries
 
-        if report:
-            series = read_timeseries(outdir.temp_path(TIMESERIES_CSV))
-        else:  # the distance needs two columns only
-            series = read_columns(outdir.temp_path(TIMESERIES_CSV), ("time", "speed"))
+        assert rec.writer is not None
+        series = rec.writer.series()
         result.distance = drive_distance(series)
+        result.track = _track(series)
         if report:
             from kinematic_monitor.apps.report import ReportData, render_report
 
@@ -479,6 +501,20 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
             result.lost.extend(notes)
         result.outputs = [p.name for p in outdir.commit()]
     return result
+
+
+TRACK_POINTS = 300  # points of the decimated drive path kept for maps
+
+
+def _track(series: Series) -> list[list[float]]:
+    """Decimated [[x, y], ...] [m] of the time series' finite positions."""
+    x, y = series.get("x"), series.get("y")
+    if x is None or y is None:
+        return []
+    pts = [(float(a), float(b)) for a, b in zip(x, y, strict=True)
+           if math.isfinite(a) and math.isfinite(b)]
+    stride = max(1, math.ceil(len(pts) / TRACK_POINTS))
+    return [[round(a, 2), round(b, 2)] for a, b in pts[::stride]]
 
 
 DIAGNOSTICS_TOPIC = "/diagnostics"

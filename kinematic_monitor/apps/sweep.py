@@ -67,7 +67,6 @@ GEOJSON = "low_grip.geojson"
 MAP_HTML = "low_grip_map.html"
 DRIFT_CSV = "calibration_drift.csv"
 CALIBRATION_FILE = "calibrated_params.yaml"
-TRACK_POINTS = 300  # points kept per bag track for the map page
 MAX_WORKERS = 256
 
 
@@ -104,57 +103,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 # worker side
 
 
-def read_fixes(bag: str, topic: str) -> list[tuple[float, float, float]]:
-    """(stamp [s], latitude, longitude [deg]) of the bag's valid NavSatFix messages, sorted.
-
-    Empty when the topic is absent or unconfigured; unreadable messages are skipped.
-    """
-    if not topic:
-        return []
-    from rosbags.rosbag2 import Reader
-
-    from kinematic_monitor.core.samples import GnssSample
-    from kinematic_monitor.io import decode
-
-    out: list[tuple[float, float, float]] = []
-    with Reader(Path(bag)) as reader:
-        conns = [c for c in reader.connections
-                 if c.topic == topic and c.msgtype == decode.NAVSATFIX]
-        if not conns:
-            return []
-        try:
-            for _conn, _t, data in reader.messages(connections=conns):
-                s = decode.navsatfix(data)
-                if isinstance(s, GnssSample):
-                    out.append((s.stamp, s.latitude, s.longitude))
-        except Exception:  # noqa: BLE001 - a damaged tail: keep the fixes read so far
-            pass
-    out.sort()
-    return out
-
-
-def _track(out_dir: Path) -> list[list[float]]:
-    """Decimated [[x, y], ...] [m] from the bag's ``timeseries.csv`` (empty if none)."""
-    from kinematic_monitor.apps.replay import TIMESERIES_CSV
-    from kinematic_monitor.io.timeseries import read_timeseries
-
-    path = out_dir / TIMESERIES_CSV
-    if not path.is_file():
-        return []
-    s = read_timeseries(path)
-    x, y = s.get("x"), s.get("y")
-    if x is None or y is None:
-        return []
-    pts = [(float(a), float(b)) for a, b in zip(x, y, strict=True)
-           if math.isfinite(a) and math.isfinite(b)]
-    stride = max(1, math.ceil(len(pts) / TRACK_POINTS))
-    return [[round(a, 2), round(b, 2)] for a, b in pts[::stride]]
-
-
 def sweep_bag(task: Mapping[str, Any]) -> dict[str, Any]:
     """Replay one bag into ``task['out_dir']`` and write its marker; returns the marker.
 
-    ``task``: bag, out_dir, params (file path), key, bag_id, gnss_topic, start_time.
+    ``task``: bag, out_dir, params (file path), key, bag_id, start_time.
     Never raises for a bad bag: the error goes into a 'failed' marker.
     """
     import time
@@ -176,14 +128,10 @@ def sweep_bag(task: Mapping[str, Any]) -> dict[str, Any]:
         rec.duration = result.duration
         rec.distance = result.distance
         rec.lost_data = list(result.lost)
-        try:
-            fixes = read_fixes(task["bag"], str(task.get("gnss_topic", "")))
-        except Exception as exc:  # noqa: BLE001 - no WGS84 placement, the run still counts
-            fixes = []
-            rec.lost_data.append(f"GNSS fixes unreadable: {exc}")
-        rec.fixes = [fleet.interpolate_fix(fixes, float(ev.get("detected_at") or math.nan))
+        rec.fixes = [fleet.interpolate_fix(result.fixes,
+                                           float(ev.get("detected_at") or math.nan))
                      for ev in rec.events]
-        rec.track = _track(out_dir)
+        rec.track = result.track
     except Exception as exc:  # noqa: BLE001 - fault isolation: record and go on
         rec.status = "failed"
         rec.error = str(exc) if isinstance(exc, UsageError) else f"{type(exc).__name__}: {exc}"
@@ -288,7 +236,6 @@ def sweep(paths: Sequence[str], params_path: str, out: str, *, workers: int | No
 
     Raises ``UsageError`` for bad parameters, paths, options or an unreachable scheduler.
     """
-    from kinematic_monitor.io.bag import inputs_from_config
 
     n_workers = workers if workers is not None else (os.cpu_count() or 1)
     if not 1 <= n_workers <= MAX_WORKERS:
@@ -310,7 +257,6 @@ def sweep(paths: Sequence[str], params_path: str, out: str, *, workers: int | No
     except OSError as exc:
         raise UsageError(f"--out {out!r}: cannot write ({exc})") from None
     params_hash = fleet.params_digest(config.as_dict())
-    gnss_topic = inputs_from_config(config).gnss
 
     result = SweepResult()
     records: dict[str, fleet.BagRecord] = {}
@@ -334,7 +280,7 @@ def sweep(paths: Sequence[str], params_path: str, out: str, *, workers: int | No
             continue
         tasks.append({"bag": str(bag), "out_dir": str(out_dir),
                       "params": str(out_root / PARAMS_COPY), "key": key, "bag_id": bag_id,
-                      "gnss_topic": gnss_topic, "start_time": fleet.bag_start_time(bag)})
+                      "start_time": fleet.bag_start_time(bag)})
     show = progress_wanted() if progress is None else progress
     if tasks:
         _run_tasks(tasks, records, n_workers, scheduler, show, len(bags), client)
@@ -458,5 +404,5 @@ def run(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-__all__ = ["HELP", "SweepResult", "add_arguments", "dask_client", "read_fixes", "run",
+__all__ = ["HELP", "SweepResult", "add_arguments", "dask_client", "run",
            "sweep", "sweep_bag", "write_fleet_outputs"]

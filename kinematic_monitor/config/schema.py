@@ -218,7 +218,9 @@ SPECS: tuple[ParamSpec, ...] = (
     _string("inputs.imu.topic", "/imu/data", "sensor_msgs/Imu topic; '' disables the IMU.",
             "optional_topic"),
     _string("inputs.gnss.topic", "/gnss/fix",
-            "sensor_msgs/NavSatFix topic (for maps); '' disables it.", "optional_topic"),
+            "sensor_msgs/NavSatFix topic read from recordings (replay, sweep) to place events "
+            "on maps in WGS84; the live node does not use it; '' disables it.",
+            "optional_topic"),
     _string("inputs.qos", "sensor_data", "QoS profile of all subscriptions.",
             choices=("sensor_data", "reliable")),
     _double("inputs.reorder_window", 0.05, "s",

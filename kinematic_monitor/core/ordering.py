@@ -56,7 +56,7 @@ class _Stamped(Protocol):
 
 #: stream names of the configured inputs (single-value inputs are named by their roles,
 #: e.g. ``steering+speed``)
-INPUT_STREAMS = ("joint_states", "localization", "imu", "gnss")
+INPUT_STREAMS = ("joint_states", "localization", "imu")
 
 
 class _Topic(Protocol):
@@ -73,8 +73,6 @@ class _Inputs(Protocol):
     def localization(self) -> _Topic: ...
     @property
     def imu(self) -> _Topic: ...
-    @property
-    def gnss(self) -> _Topic: ...
 
 
 class _Timeouts(Protocol):
@@ -148,8 +146,11 @@ class ReorderBuffer:
         self.released_by_watermark = 0
         self.released_by_lag = 0
         self._last: dict[str, float] = {}  # stream -> newest stamp delivered
+        self._timeouts: dict[str, float] = {}  # stream -> its timeout [s], once heard
+        self._unheard = set(self.streams)  # declared streams not heard yet
         self.untrusted: set[str] = set()  # streams seen going backwards in stamp
         self._gaps: dict[str, deque[float]] = {}  # stream -> recent stamp gaps [s]
+        self._gap_range: dict[str, tuple[float, float]] = {}  # stream -> (min, max) of those
         self._ahead: dict[str, float] = {}  # stream -> look-ahead [s] (regular streams)
 
     def __len__(self) -> int:
@@ -157,21 +158,28 @@ class ReorderBuffer:
 
     def watermark(self) -> float:
         """Stamp [s] up to which every active stream has delivered (-inf if unknown)."""
-        if not self.watermark_enabled or self.newest - self.first < self.lag:
+        newest = self.newest
+        if not self.watermark_enabled or newest - self.first < self.lag:
             return -math.inf
+        if self._unheard:
+            for name in self._unheard:
+                if newest - self.first <= self._timeout(name):
+                    return -math.inf  # declared, not heard yet: wait (up to its timeout)
         mark = math.inf
-        for name in self.streams:
-            if name not in self._last and (self.newest - self.first
-                                           <= self.stream_timeouts.get(name,
-                                                                       self.default_timeout)):
-                return -math.inf  # declared, not heard yet: wait for it (up to its timeout)
+        ahead = self._ahead
+        untrusted = self.untrusted
         for name, last in self._last.items():
-            if self.newest - last > self.stream_timeouts.get(name, self.default_timeout):
+            if newest - last > self._timeouts[name]:
                 continue  # silent: it no longer holds the others back
-            if name in self.untrusted:
+            if untrusted and name in untrusted:
                 return -math.inf
-            mark = min(mark, last + self._ahead.get(name, 0.0))
-        return mark if math.isfinite(mark) else -math.inf
+            m = last + ahead.get(name, 0.0)
+            if m < mark:
+                mark = m
+        return mark if mark < math.inf else -math.inf
+
+    def _timeout(self, name: str) -> float:
+        return self.stream_timeouts.get(name, self.default_timeout)
 
     def push(self, sample: _Stamped, stream: str | None = None) -> list[Any]:
         """Add a sample from ``stream`` (default: the sample's type name); return what can be
@@ -186,14 +194,7 @@ class ReorderBuffer:
         if stamp < self.newest - self.reset_threshold:
             out.extend(self.flush())
             out.append(TimeReset(stamp=stamp, previous=self.newest))
-            self.resets += 1
-            self.newest = -math.inf
-            self.first = math.inf
-            self.last_released = -math.inf
-            self._last.clear()
-            self.untrusted.clear()
-            self._gaps.clear()
-            self._ahead.clear()
+            self._new_timeline()
         previous = self._last.get(key, -math.inf)
         if stamp == previous and sample == self._last_sample.get(key):
             self.duplicates += 1  # the same message again on one stream: dropped
@@ -201,22 +202,32 @@ class ReorderBuffer:
         self._last_sample[key] = sample
         if stamp < previous:
             self.untrusted.add(key)
-        elif self.lookahead > 0.0 and math.isfinite(previous):
-            self._note_gap(key, stamp - previous)
         else:
-            self._ahead.pop(key, None)
-        self._last[key] = max(previous, stamp)
-        self.newest = max(self.newest, stamp)
-        self.first = min(self.first, stamp)
+            if self.lookahead > 0.0 and previous > -math.inf:
+                self._note_gap(key, stamp - previous)
+            else:
+                self._ahead.pop(key, None)
+            self._last[key] = stamp
+        if self._unheard or key not in self._timeouts:
+            self._timeouts[key] = self._timeout(key)
+            self._unheard.discard(key)
+        if stamp > self.newest:
+            self.newest = stamp
+        if stamp < self.first:
+            self.first = stamp
         if stamp < self.last_released:
             self.late_dropped += 1
             return out
-        heapq.heappush(self._heap, (stamp, self._seq, sample))
+        heap = self._heap
+        heapq.heappush(heap, (stamp, self._seq, sample))
         self._seq += 1
         by_lag = self.newest - self.lag
-        limit = max(by_lag, self.watermark())
-        while self._heap and self._heap[0][0] <= limit:
-            s, _, item = heapq.heappop(self._heap)
+        limit = self.watermark()
+        if by_lag > limit:
+            limit = by_lag
+        pop = heapq.heappop
+        while heap and heap[0][0] <= limit:
+            s, _, item = pop(heap)
             if s <= by_lag:
                 self.released_by_lag += 1
             else:
@@ -225,12 +236,41 @@ class ReorderBuffer:
             out.append(item)
         return out
 
+    def _new_timeline(self) -> None:
+        self.resets += 1
+        self.newest = -math.inf
+        self.first = math.inf
+        self.last_released = -math.inf
+        self._last.clear()
+        self._unheard = set(self.streams)
+        self.untrusted.clear()
+        self._gaps.clear()
+        self._gap_range.clear()
+        self._ahead.clear()
+
+    def set_timeouts(self, timeouts: Mapping[str, float]) -> None:
+        """New stream timeouts [s] (parameters changed at run time)."""
+        self.stream_timeouts.update(timeouts)
+        self._timeouts = {k: self._timeout(k) for k in self._timeouts}
+
     def _note_gap(self, key: str, gap: float) -> None:
         gaps = self._gaps.get(key)
         if gaps is None:
             gaps = self._gaps[key] = deque(maxlen=GAP_WINDOW)
+        dropped = gaps[0] if len(gaps) == GAP_WINDOW else None
         gaps.append(gap)
-        lo, hi = min(gaps), max(gaps)
+        rng = self._gap_range.get(key)
+        if rng is None:
+            lo = hi = gap
+        elif dropped is not None and (dropped == rng[0] or dropped == rng[1]):
+            lo, hi = min(gaps), max(gaps)  # the window's extreme left it: recompute
+        else:
+            lo, hi = rng
+            if gap < lo:
+                lo = gap
+            elif gap > hi:
+                hi = gap
+        self._gap_range[key] = (lo, hi)
         if len(gaps) >= MIN_GAPS and lo > 0.0 and hi <= REGULARITY * lo:
             self._ahead[key] = self.lookahead * lo
         else:
@@ -252,15 +292,15 @@ def input_buffer(cfg: InputConfig) -> ReorderBuffer:
     Lag ``inputs.reorder_window`` [s]; a backwards jump of more than max(1 s, 2 lag + 0.5 s)
     is a new timeline. Watermark release over the configured inputs (streams named as in
     :data:`INPUT_STREAMS`); an input silent past its ``timeouts.*`` [s] stops holding the
-    others back. GNSS only tags positions for maps: it never holds the other inputs back.
+    others back. GNSS is not among them: it only places the drive on a map.
     """
     lag = cfg.inputs.reorder_window
     to = cfg.timeouts
     topics = {"joint_states": cfg.inputs.joint_states.topic,
               "localization": cfg.inputs.localization.topic,
-              "imu": cfg.inputs.imu.topic, "gnss": cfg.inputs.gnss.topic}
+              "imu": cfg.inputs.imu.topic}
     return ReorderBuffer(
         lag, reset_threshold=max(1.0, 2.0 * lag + 0.5),
-        streams=[name for name, topic in topics.items() if topic and name != "gnss"],
+        streams=[name for name, topic in topics.items() if topic],
         stream_timeouts={"joint_states": to.joint_states, "localization": to.localization,
                          "imu": to.imu}, default_timeout=1.0)

@@ -24,7 +24,7 @@ from kinematic_monitor.core.geometry import yaw_to_quaternion
 from kinematic_monitor.io import encode
 
 if TYPE_CHECKING:  # pragma: no cover - typing only (the core's filter estimate)
-    from kinematic_monitor.core.monitor import Prediction
+    from kinematic_monitor.core.prediction import Prediction
 
 __all__ = [
     "HARDWARE_ID",

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Protocol
 
 from kinematic_monitor.core.ordering import TimeReset
-from kinematic_monitor.core.samples import Sample
+from kinematic_monitor.core.samples import GnssSample, Sample
 
 __all__ = ["TopicStats", "BagDamage", "Progress", "SampleSource", "SampleSink"]
 
@@ -65,7 +65,9 @@ class SampleSource(Protocol):
     those read so far; ``stats``: per used topic; ``warnings``: plain sentences (e.g. an
     optional topic missing); ``damage``: None if the recording read cleanly;
     ``out_of_order``: samples dropped as too late for stamp order; ``time_jumps``:
-    backward stamp jumps (each gives a ``TimeReset`` in the stream).
+    backward stamp jumps (each gives a ``TimeReset`` in the stream); ``fixes``: the GNSS
+    fixes read, in arrival order (they only place the drive on a map: they are not part of
+    the stamp-ordered stream the monitor takes).
     """
 
     path: Path
@@ -77,6 +79,7 @@ class SampleSource(Protocol):
     damage: BagDamage | None
     out_of_order: int
     time_jumps: int
+    fixes: list[GnssSample]
 
     def iter_samples(self, progress: Progress | None = None, progress_every: int = 5000
                      ) -> Iterator[Sample | TimeReset]:

@@ -58,6 +58,7 @@ class TimeseriesWriter:
         self._row_format = ("%.6f" + ",%.6g" * (len(BASE_COLUMNS) - 1 + len(self.channels))
                             + ",%d" * (len(self.checks) + 1) + "\n")
         self.rows = 0
+        self._kept: list[list[float]] = []  # every written row, as numbers (see series())
         self.ignored = 0
         self._open = False
         self._window_start = -math.inf
@@ -128,10 +129,27 @@ class TimeseriesWriter:
         b[6] = self._accel
         lev = self._lev
         # add() stores finite values only, so every other slot is NaN, written "nan"
-        self._fh.write(self._row_format % (*b, *self._res, *lev, max(lev, default=0)))
+        row = [*b, *self._res, *lev, max(lev, default=0)]
+        self._fh.write(self._row_format % tuple(row))
+        self._kept.append(row)
         self.rows += 1
         self._open = False
         self._reset_window()
+
+    def series(self) -> Series:
+        """The rows written so far as columns (what reading the file back gives, at full
+        precision instead of the file's 6 significant digits)."""
+        header = (list(BASE_COLUMNS) + [RESIDUAL_PREFIX + c for c in self.channels]
+                  + [LEVEL_PREFIX + c for c in self.checks] + [LEVEL_MAX])
+        if not self._kept:
+            return Series({h: np.empty(0) for h in header})
+        arr = np.array(self._kept, dtype=float)
+        return Series({h: arr[:, j] for j, h in enumerate(header)})
+
+    def break_window(self) -> None:
+        """Write the open window now (the stamps jumped back: no row spans two timelines)."""
+        if self._open:
+            self._flush_row()
 
     def close(self) -> None:
         """Write the last (partial) window; the file itself is closed by its owner."""

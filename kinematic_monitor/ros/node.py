@@ -55,7 +55,7 @@ from rclpy.qos import (
     ReliabilityPolicy,
 )
 from rclpy.task import Future
-from sensor_msgs.msg import Imu, JointState, NavSatFix
+from sensor_msgs.msg import Imu, JointState
 
 from kinematic_monitor.config import schema, validation
 from kinematic_monitor.core import ordering
@@ -312,8 +312,8 @@ class KinematicMonitorNode(Node):
         next samples)."""
         self._flush_batch()  # samples before the change meet the thresholds they came with
         to = config.timeouts
-        self.buffer.stream_timeouts.update(
-            joint_states=to.joint_states, localization=to.localization, imu=to.imu)
+        self.buffer.set_timeouts({"joint_states": to.joint_states,
+                                  "localization": to.localization, "imu": to.imu})
         from kinematic_monitor.core.monitor import Monitor
 
         if math.isfinite(self._last_stamp):
@@ -445,7 +445,9 @@ class KinematicMonitorNode(Node):
                 PoseWithCovarianceStamped, loc.reset_topic,
                 self._guarded("localization_reset", self._on_reset), 10))
         sub(Imu, cfg.inputs.imu.topic, "imu", decode.imu, True)
-        sub(NavSatFix, cfg.inputs.gnss.topic, "gnss", decode.navsatfix, True)
+        if cfg.inputs.gnss.topic:  # GNSS places drives on maps (replay, sweep): offline only
+            self.get_logger().info(f"input gnss: {cfg.inputs.gnss.topic} is read offline for "
+                                   "maps; the live monitor does not use it")
 
         self.pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
         self.pub_prediction = self.create_publisher(Odometry, "~/prediction", 10)

@@ -55,18 +55,20 @@ def drive() -> tuple[list[object], MonitorConfig]:
 
 def _live_stream(records: list[object], config: MonitorConfig) -> list[object]:
     """What the node would hand the monitor: each message's bytes decoded, in arrival
-    order, through the node's reorder buffer."""
+    order, through the node's reorder buffer (GNSS places drives on maps offline only: the
+    node does not take it)."""
     js = config.inputs.joint_states
     jmap = JointMap(js.steering_joints, js.front_wheel_joints, js.rear_wheel_joints,
                     steering_ratio=config.vehicle.steering_ratio)
     decoders = {"joint_states": decode.joint_state_decoder(jmap,
                                                            config.vehicle.max_road_wheel_angle),
-                "odometry": decode.odometry, "imu": decode.imu, "gnss": decode.navsatfix}
-    names = {"joint_states": "joint_states", "odometry": "localization", "imu": "imu",
-             "gnss": "gnss"}
+                "odometry": decode.odometry, "imu": decode.imu}
+    names = {"joint_states": "joint_states", "odometry": "localization", "imu": "imu"}
     buf = ordering.input_buffer(config)
     out: list[object] = []
     for r in sorted(records, key=lambda r: r.arrival_ns):  # type: ignore[attr-defined]
+        if r.key == "gnss":  # type: ignore[attr-defined]
+            continue
         got = decoders[r.key](record_cdr(r))  # type: ignore[attr-defined]
         if not isinstance(got, Rejected):
             out.extend(buf.push(got, names[r.key]))  # type: ignore[attr-defined]

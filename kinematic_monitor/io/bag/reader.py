@@ -31,7 +31,7 @@ from typing import Any
 from kinematic_monitor.config.validation import MonitorConfig
 from kinematic_monitor.core import ordering
 from kinematic_monitor.core.ordering import TimeReset
-from kinematic_monitor.core.samples import Sample
+from kinematic_monitor.core.samples import GnssSample, Sample
 from kinematic_monitor.io import decode
 from kinematic_monitor.io.bag.errors import BagError
 from kinematic_monitor.io.bag.inputs import as_config, check_topics, inputs_from_config
@@ -72,6 +72,7 @@ class BagSource:
         self.damage: BagDamage | None = None
         self.out_of_order = 0
         self.time_jumps = 0
+        self.fixes: list[GnssSample] = []
         self.position = 0
         self.scalar_inputs: dict[str, list[ScalarInput]] = {}
         self.storage, self._files, meta = storage_files(self.path)
@@ -243,6 +244,9 @@ class BagSource:
             st.accepted += 1
             if rstamped:
                 st.receive_time_stamped += 1
+            if type(got) is GnssSample:  # map placement only: not the monitor's stream
+                self.fixes.append(got)
+                continue
             late, repeated = buf.late_dropped, buf.duplicates
             released = push(got, stream)
             if buf.late_dropped != late or buf.duplicates != repeated:
