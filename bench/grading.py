@@ -31,7 +31,8 @@ from typing import Any
 
 from kinematic_monitor.config.validation import validate
 from kinematic_monitor.core import model
-from kinematic_monitor.core.events import Event
+from kinematic_monitor.core.events import SLIP_KINDS, Event
+from kinematic_monitor.core.model import GRAVITY
 from kinematic_monitor.core.samples import ChassisSample, ImuSample
 from kinematic_monitor.io import convert, decode
 from kinematic_monitor.sim.bagout import record_cdr
@@ -40,7 +41,6 @@ from kinematic_monitor.sim.scoring import (  # noqa: F401 - re-exported for the 
     FAULT_KINDS,
     MATCH_RULE,
     MUST_DETECT_RULE,
-    SLIP_KINDS,
     TABLE_KINDS,
     Grade,
     KindRow,
@@ -232,7 +232,7 @@ def run_case(case: Case, overrides: Mapping[str, Any] | None = None) -> CaseResu
     events = run_monitor(samples, cfg)
     base = YawRateBaseline(validate(cfg).vehicle).run(samples)
     return CaseResult(case, truths, events, base, trace.duration / 3600.0,
-                      float(np.max(np.abs(trace.ay))) / 9.80665, rejected)
+                      float(np.max(np.abs(trace.ay))) / GRAVITY, rejected)
 
 
 def table(results: Sequence[CaseResult], which: str = "events",

@@ -6,7 +6,7 @@ samples dropped for lateness by the reorder buffer, receive and processed latenc
 the node's CPU use from /proc/<pid>/stat. Then, in this same process, the core's per-sample cost
 (Monitor.process over a recorded-like mix) beside a bare filterpy EKF step, as a ratio.
 
-Compare figures within one run only (shared, noisy machine; see PERF_NOTES.md).
+Compare figures within one run only (shared, noisy machine).
 The node takes its inputs as serialized bytes decoded by kinematic_monitor.io.decode.
 ``--floor`` adds a node that only counts the same messages (the executor + DDS floor; raw
 bytes and rclpy message objects).

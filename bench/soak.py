@@ -12,7 +12,7 @@ key-values on /diagnostics) every half second. Printed at the end:
   node does not report a max) and the median of its windowed p50;
 * messages published and received, late drops, callback errors, node CPU share.
 
-Figures from one run on a shared machine; compare within a run only (PERF_NOTES.md).
+Figures from one run on a shared machine; compare within a run only.
 Usage: python bench/soak.py [--minutes 10] [--rate-factor 10]
 """
 

@@ -187,7 +187,8 @@ class Listener:
                 return {}
             req = GetParameters.Request(names=list(names))
             fut = client.call_async(req)
-            # never without timeout_sec (see PERF_NOTES)
+            # never without timeout_sec: EventsExecutor.spin_until_future_complete without
+            # one does not return after the future completes (seen with these rclpy wheels)
             self.spin_until(fut.done, timeout)
             if not fut.done() or fut.result() is None:
                 return {}

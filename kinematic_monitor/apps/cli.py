@@ -4,7 +4,7 @@ Each subcommand lives in its own module exposing ``HELP`` (one line),
 ``add_arguments(parser)`` and ``run(args) -> int``; modules are imported only
 when their subcommand runs, so ``--help`` stays fast and needs no ROS install.
 
-Exit codes (DESIGN.md section 4): 0 ok, 1 a ``--fail-on`` condition was met,
+Exit codes (docs/interface.md section 4): 0 ok, 1 a ``--fail-on`` condition was met,
 2 bad usage, bad parameters or unreadable input.
 """
 

@@ -31,9 +31,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-KINDS = ("lateral_slip", "longitudinal_slip", "localization_fault", "calibration_bias",
-         "input_stale")
-SLIP_KINDS = ("lateral_slip", "longitudinal_slip")
+from kinematic_monitor.core.events import KINDS, SLIP_KINDS
+
 LEVEL_RANK = {"WARN": 1, "ERROR": 2}
 STORAGE_SUFFIXES = (".db3", ".mcap")
 HASH_EDGE = 1 << 20  # [bytes] head and tail of each storage file that enter the fingerprint

@@ -1,6 +1,6 @@
 """``kinematic-monitor replay``: run the monitor over a recorded rosbag2 folder.
 
-Writes into the output directory (DESIGN.md section 4): ``events.json`` (schema
+Writes into the output directory (docs/interface.md section 4): ``events.json`` (schema
 ``kinematic_monitor.events/1``), ``events.csv``, ``timeseries.csv`` (the per-update time
 series, decimated, streamed) and ``report.html`` (unless ``--no-report``). Outputs appear
 only when the run completes (see ``outputs.OutputDir``). Exit codes: 0 ok, 1 a
@@ -53,7 +53,7 @@ _READ_AHEAD_MIN = 20_000  # readahead.MIN_MESSAGES (not imported here: --help st
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Options of the ``replay`` subcommand (DESIGN.md section 4)."""
+    """Options of the ``replay`` subcommand (docs/interface.md section 4)."""
     parser.add_argument("bag", metavar="BAG", help="rosbag2 folder (sqlite3 or MCAP storage)")
     parser.add_argument("--params", metavar="FILE", required=True,
                         help="ROS 2 parameter file (node kinematic_monitor)")
@@ -89,16 +89,18 @@ _hypot = math.hypot
 
 
 def _bicycle_steer(s: ChassisSample) -> float:
-    """Bicycle-equivalent road-wheel angle [rad]: cot d = (cot dl + cot dr)/2 (Ackermann)."""
+    """The bicycle-equivalent road-wheel angle [rad] the monitor takes from a chassis sample
+    (``model.ackermann_to_bicycle`` of the pair, or the single angle); NaN without one."""
     if math.isfinite(s.steer):
         return s.steer
-    dl, dr = s.steer_left, s.steer_right
-    if not (math.isfinite(dl) and math.isfinite(dr)):
+    if not (math.isfinite(s.steer_left) and math.isfinite(s.steer_right)):
         return math.nan
-    tl, tr = math.tan(dl), math.tan(dr)
-    if tl + tr == 0.0:
-        return 0.0
-    return math.atan(2.0 * tl * tr / (tl + tr)) if tl * tr > 0.0 else 0.5 * (dl + dr)
+    from kinematic_monitor.core.model import ackermann_to_bicycle  # the core loads on use
+
+    try:
+        return ackermann_to_bicycle(s.steer_left, s.steer_right)
+    except ValueError:
+        return math.nan
 
 
 _NAN4 = (math.nan, math.nan, math.nan, math.nan)

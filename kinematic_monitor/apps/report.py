@@ -20,14 +20,13 @@ from typing import Any
 
 import numpy as np
 
+from kinematic_monitor.core.events import KINDS as EVENT_KINDS
+from kinematic_monitor.core.events import SLIP_KINDS
+from kinematic_monitor.core.levels import LEVEL_NAMES
+from kinematic_monitor.core.model import GRAVITY as STANDARD_GRAVITY
 from kinematic_monitor.io.timeseries import LEVEL_MAX, RESIDUAL_PREFIX, Series
 
-STANDARD_GRAVITY = 9.80665  # [m/s²], CGPM 1901 / ISO 80000-3
-LEVEL_NAMES = {0: "OK", 1: "WARN", 2: "ERROR", 3: "STALE"}  # REP 107 / diagnostic_msgs
 LEVEL_COLOURS = {0: "#4f8a6b", 1: "#d9931c", 2: "#b8322a", 3: "#8a8d91"}
-EVENT_KINDS = ("lateral_slip", "longitudinal_slip", "localization_fault",
-               "calibration_bias", "input_stale")
-SLIP_KINDS = ("lateral_slip", "longitudinal_slip")
 KIND_LABELS = {
     "lateral_slip": "lateral slip (tyres)",
     "longitudinal_slip": "longitudinal slip (tyres)",
@@ -622,8 +621,3 @@ def _event_card(i: int, ev: Mapping[str, Any], t0: float, series: Series,
             parts.append(f"<div class='fig'>{svg}</div>")
     parts.append("</article>")
     return "".join(parts)
-
-
-def write_report(data: ReportData, path: str | Path) -> None:
-    """Render the report and write it to ``path`` (UTF-8)."""
-    Path(path).write_text(render_report(data), encoding="utf-8")

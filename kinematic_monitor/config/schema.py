@@ -314,9 +314,18 @@ SPECS: tuple[ParamSpec, ...] = (
             0.0, 1.0, lo_inc=False, runtime=True),
     _double("checks.slip_ratio_error", 0.2, "-", "Wheel slip ratio that raises ERROR.",
             0.0, 1.0, lo_inc=False, runtime=True),
-    _double("checks.yaw_lag", 0.2, "s", "Yaw-response lag tolerated.", 0.0, 2.0, runtime=True),
-    _double("checks.heading_time_constant", 5.0, "s", "Heading offset τ.", 0.1, 600, runtime=True),
-    _double("checks.heading_tolerance", 0.005, "rad", "Heading error ok.", 0.0, 1.0, runtime=True),
+    _double("checks.yaw_lag", 0.2, "s",
+            "How long the vehicle's yaw rate may trail the kinematic yaw rate while the "
+            "steering moves (its yaw response): a difference up to this lag times the rate of "
+            "change of the kinematic yaw rate is not counted as slip.", 0.0, 2.0, runtime=True),
+    _double("checks.heading_time_constant", 5.0, "s",
+            "Time over which the localisation-heading check follows a slowly changing "
+            "difference between the localisation yaw and the gyro-integrated heading (a "
+            "mounting offset, a slow gyro bias); a heading drift faster than this is reported.",
+            0.1, 600, runtime=True),
+    _double("checks.heading_tolerance", 0.005, "rad",
+            "Heading difference between localisation and gyro-integrated heading, beyond that "
+            "slow offset, still taken as agreement.", 0.0, 1.0, runtime=True),
     # timeouts: an input older than this is reported stale
     _double("timeouts.joint_states", 0.5, "s", "Joint states older than this are stale.",
             0.0, 60.0, lo_inc=False, runtime=True),

@@ -152,7 +152,8 @@ class OutputConfig:
 
 @dataclass(frozen=True)
 class MonitorConfig:
-    """Validated parameters: typed groups (``cfg.vehicle.wheelbase``) and ``get(name)``.
+    """Validated parameters as typed groups (``cfg.vehicle.wheelbase``), the one way any
+    code reads them.
 
     ``values`` holds every schema parameter by dotted name (arrays as tuples); ``ros``
     holds ROS-reserved parameters that were given (e.g. ``use_sim_time``).
@@ -166,13 +167,6 @@ class MonitorConfig:
     output: OutputConfig
     values: Mapping[str, Any] = field(repr=False, compare=True)
     ros: Mapping[str, Any] = field(default_factory=dict, repr=False, compare=False)
-
-    def get(self, name: str) -> Any:
-        """The value of the parameter with dotted ``name``; KeyError naming it if unknown."""
-        try:
-            return self.values[name]
-        except KeyError:
-            raise KeyError(f"unknown parameter '{name}'") from None
 
     def as_dict(self) -> dict[str, Any]:
         """All schema parameters by dotted name, arrays as lists (ready for YAML/JSON)."""

@@ -292,7 +292,8 @@ class BicycleEKF:
     @property
     def covariance(self) -> np.ndarray:
         """Copy of the 5x5 state covariance."""
-        return np.array(self._p)[_SYM5]
+        cov: np.ndarray = np.array(self._p)[_SYM5]
+        return cov
 
     def pose_covariance(self) -> tuple[float, ...]:
         """The (x, y, yaw) block of the covariance, row-major 3x3 [m^2, m rad, rad^2]

@@ -3,7 +3,7 @@
 The files made of them (``events.json``, ``events.csv``, the JSON-lines event log) are
 written by :mod:`kinematic_monitor.io.event_files`.
 
-``events.json`` follows DESIGN.md section 4, schema ``kinematic_monitor.events/1``::
+``events.json`` follows docs/interface.md section 4, schema ``kinematic_monitor.events/1``::
 
     {"schema": "kinematic_monitor.events/1", "source": "<bag path>",
      "events": [{"start", "end", "detected_at", "kind", "level", "position", "peak",
@@ -34,6 +34,8 @@ from kinematic_monitor.core.levels import ERROR, LEVEL_NAMES, WARN
 SCHEMA = "kinematic_monitor.events/1"
 KINDS = ("lateral_slip", "longitudinal_slip", "localization_fault", "calibration_bias",
          "input_stale")
+#: the kinds that say the tyres slipped (the others: a source or an input is wrong)
+SLIP_KINDS = ("lateral_slip", "longitudinal_slip")
 EVENT_KEYS = ("start", "end", "detected_at", "kind", "level", "position", "peak", "summary")
 
 
@@ -58,11 +60,6 @@ class Event:
             raise ValueError(f"event kind {self.kind!r} is not one of {', '.join(KINDS)}")
         if self.level not in (WARN, ERROR):
             raise ValueError(f"event level {self.level!r} must be WARN (1) or ERROR (2)")
-
-    @property
-    def is_open(self) -> bool:
-        """True until the episode has ended."""
-        return not math.isfinite(self.end)
 
     def to_dict(self) -> dict[str, Any]:
         """The ``events.json`` entry (exactly the contract's keys, JSON-safe values)."""

@@ -270,7 +270,8 @@ def _check_angle(name: str, value: float) -> None:
         raise ValueError(f"{name}={value!r} rad is invalid; allowed: finite, |angle| < pi/2")
 
 
-def ackermann_to_bicycle(delta_left: float, delta_right: float, p: VehicleParams) -> float:
+def ackermann_to_bicycle(delta_left: float, delta_right: float,
+                         p: VehicleParams | None = None) -> float:
     """Bicycle-equivalent angle [rad] from left/right road-wheel angles [rad].
 
     Ackermann geometry: cot(delta) = (cot(delta_left) + cot(delta_right)) / 2, evaluated
@@ -278,7 +279,7 @@ def ackermann_to_bicycle(delta_left: float, delta_right: float, p: VehicleParams
     division by zero. When the two angles do not have the same strict sign (straight ahead
     or toe noise around it) the result is 0, which is the limit of the formula as either
     wheel goes straight (the mapping stays continuous).
-    ``p`` is accepted for a uniform signature; the relation does not depend on geometry.
+    ``p`` may be given for a uniform signature; the relation does not depend on geometry.
     """
     _check_angle("delta_left", delta_left)
     _check_angle("delta_right", delta_right)

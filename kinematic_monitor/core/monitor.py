@@ -16,7 +16,13 @@ from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
 from kinematic_monitor.core.checks import CheckSet, build_checks
-from kinematic_monitor.core.checks.base import MODEL_TOLERANCE, PREFIX, Check, CheckStatus
+from kinematic_monitor.core.checks.base import (
+    MODEL_TOLERANCE,
+    PREFIX,
+    Check,
+    CheckContext,
+    CheckStatus,
+)
 from kinematic_monitor.core.checks.yaw_rate import yaw_rate_sigma
 from kinematic_monitor.core.episodes import EventBook
 from kinematic_monitor.core.events import Event, Transition
@@ -94,8 +100,8 @@ class Monitor:
         self.book = EventBook(self._evidence, self._position, lambda: self.state.now,
                               lambda: self._first_stamp, self._common_peaks, self.events,
                               self._transitions, self.notes, self.counters)
-        self.checks: CheckSet = build_checks(cfg, st, self.book, DECISION_PERIOD, self.notes,
-                                             self.counters)
+        self.checks: CheckSet = build_checks(CheckContext(st, self.book, DECISION_PERIOD, cfg,
+                                                          self.notes, self.counters))
         self.book.attach(self.checks.statuses_order, self.checks.peaks_order)
         self.filter = PoseFilter(st, self.counters, cfg.noise.steering_angle_std,
                                  cfg.noise.wheel_speed_std, cfg.output.prediction_frame)

@@ -15,6 +15,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from kinematic_monitor.config.validation import MonitorConfig, SpeedInput, SteeringInput
 from kinematic_monitor.core.samples import ChassisSample, Sample
 from kinematic_monitor.io import fieldpath
 from kinematic_monitor.io.convert import (
@@ -92,39 +93,25 @@ class ScalarInput:
         return self.plan.stamp_path is None
 
 
-def scalar_settings(get: Callable[[str], Any]) -> list[ScalarSettings]:
-    """The enabled steering/speed inputs from ``get(dotted_name)`` (a parameter look-up).
-
-    Standard types fill in their message type and field path. The scale must be finite and
-    non-zero (ValueError naming the parameter otherwise).
-    """
+def scalar_settings(cfg: MonitorConfig) -> list[ScalarSettings]:
+    """The enabled steering/speed inputs (``inputs.steering.*``, ``inputs.speed.*``) of a
+    validated configuration; standard types fill in their message type and field path."""
     out: list[ScalarSettings] = []
-    for role in ("steering", "speed"):
-        pre = f"inputs.{role}."
-        topic = str(get(pre + "topic"))
-        if not topic:
+    groups: tuple[tuple[str, SteeringInput | SpeedInput], ...] = (
+        ("steering", cfg.inputs.steering), ("speed", cfg.inputs.speed))
+    for role, g in groups:
+        if not g.topic:
             continue
-        kind = str(get(pre + "type"))
-        if kind == "field":
-            type_name, field = str(get(pre + "type_name")), str(get(pre + "field"))
-        elif kind in STANDARD_SCALAR_TYPES:
-            type_name, field = STANDARD_SCALAR_TYPES[kind]
+        if g.type == "field":
+            type_name, field = g.type_name, g.field
         else:
-            raise ValueError(f"parameter '{pre}type': bad value {kind!r}")
-        scale = float(get(pre + "scale"))
-        if not (math.isfinite(scale) and scale != 0.0):
-            raise ValueError(f"parameter '{pre}scale': bad value {scale!r}; "
-                             "allowed: a finite, non-zero number")
-        offset = float(get(pre + "offset"))
-        if not math.isfinite(offset):
-            raise ValueError(f"parameter '{pre}offset': bad value {offset!r}; "
-                             "allowed: a finite number")
+            type_name, field = STANDARD_SCALAR_TYPES[g.type]
         divisor, max_abs = 1.0, math.inf
-        if role == "steering":
-            max_abs = float(get("vehicle.max_road_wheel_angle"))
-            if str(get(pre + "kind")) == "steering_wheel":
-                divisor = float(get("vehicle.steering_ratio"))
-        out.append(ScalarSettings(role, topic, kind, type_name, field, scale, offset,
+        if isinstance(g, SteeringInput):
+            max_abs = cfg.vehicle.max_road_wheel_angle
+            if g.kind == "steering_wheel":
+                divisor = cfg.vehicle.steering_ratio
+        out.append(ScalarSettings(role, g.topic, g.type, type_name, field, g.scale, g.offset,
                                   divisor, max_abs))
     return out
 

@@ -12,8 +12,8 @@ import math
 from collections.abc import Mapping
 from typing import Any
 
-LEVEL_NAMES = {0: "OK", 1: "WARN", 2: "ERROR", 3: "STALE"}
-_LEVEL_FROM_NAME = {v: k for k, v in LEVEL_NAMES.items()}
+from kinematic_monitor.core.levels import LEVEL_BY_NAME as _LEVEL_FROM_NAME
+from kinematic_monitor.core.levels import LEVEL_NAMES
 
 
 def stamp_to_sec(stamp: Any) -> float:

@@ -2,7 +2,7 @@
 
 Callbacks only turn a message into a sample (``convert``), push it through the
 header-stamp reorder buffer (``ordering``) and hand released samples to the ``Monitor``.
-Outputs (DESIGN.md section 3): ``/diagnostics`` (REP 107 levels, one status per check),
+Outputs (docs/interface.md section 3): ``/diagnostics`` (REP 107 levels, one status per check),
 ``~/prediction`` (nav_msgs/Odometry), ``~/events`` (DiagnosticStatus at each event start
 and end), a JSON-lines event log flushed at each start/end, and one console line per event.
 
@@ -154,21 +154,6 @@ def _coerce(spec_type: str, value: Any) -> Any:
         return [float(v) if isinstance(v, int) and not isinstance(v, bool) else v
                 for v in value]
     return value
-
-
-def _cfg(config: Any, dotted: str, default: Any = None) -> Any:
-    """Value at a dotted path of the validated config (attributes or mapping keys)."""
-    obj = config
-    for part in dotted.split("."):
-        if isinstance(obj, dict):
-            if part not in obj:
-                return default
-            obj = obj[part]
-        elif hasattr(obj, part):
-            obj = getattr(obj, part)
-        else:
-            return default
-    return obj
 
 
 def make_qos(kind: str) -> QoSProfile:
@@ -371,7 +356,7 @@ class KinematicMonitorNode(Node):
         out: dict[str, list[scalar_inputs.ScalarInput]] = {}
         self._scalar_classes: dict[str, Any] = {}
         try:
-            for st in scalar_inputs.scalar_settings(self.config.get):
+            for st in scalar_inputs.scalar_settings(self.config):
                 try:
                     cls = rm.import_message_class(st.type_name)
                 except ImportError as exc:
@@ -756,7 +741,8 @@ def main(args: list[str] | None = None, executor: str | None = None) -> int:
         node.get_logger().info(f"running ({type(ex).__name__})")
         try:
             while not stop["flag"] and rclpy.ok():
-                # always with a timeout (EventsExecutor trap, see PERF_NOTES)
+                # always with a timeout: without one the EventsExecutor of these rclpy wheels
+                # never returns after the future completes (and ignores SIGTERM)
                 ex.spin_until_future_complete(done, timeout_sec=0.25)
         finally:
             node.close()

@@ -32,6 +32,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from kinematic_monitor.core.events import KINDS, Event
+from kinematic_monitor.core.model import KINEMATIC_ENVELOPE, kinematic_envelope
 
 PRE_WINDOW = 0.5  # s, an event may start this much before the truth onset
 POST_WINDOW = 1.0  # s, ... or this much after the truth end
@@ -39,18 +40,15 @@ MUST_MIN_DURATION = 0.5  # s
 MUST_LATERAL_YAW = 0.05  # rad/s
 MUST_LATERAL_BETA = 0.05  # rad
 MUST_LONG_SLIP = 0.15  # -
-ENVELOPE = 0.5  # |a_y| <= 0.5·μ·g: kinematic model consistent (Polack et al. 2017, from memory)
-GRAVITY = 9.80665  # m/s²
 EPOCH = 1_800_000_000.0  # s, header stamp at simulated time 0 (sim.sensors.DEFAULT_EPOCH_NS)
 FAULT_KINDS = ("localization_fault", "calibration_bias", "input_stale")
-SLIP_KINDS = ("lateral_slip", "longitudinal_slip")
 TABLE_KINDS = KINDS + ("none",)
 
 MUST_DETECT_RULE = (
     "must-detect: injected faults always; lateral_slip lasting >= "
     f"{MUST_MIN_DURATION:g} s with peak yaw-rate residual beyond the linear reference >= "
     f"{MUST_LATERAL_YAW:g} rad/s or peak sideslip residual >= {MUST_LATERAL_BETA:g} rad, "
-    f"and peak |a_y| >= {ENVELOPE:g}*mu*g (outside the kinematic envelope); "
+    f"and peak |a_y| >= {KINEMATIC_ENVELOPE:g}*mu*g (outside the kinematic envelope); "
     f"longitudinal_slip lasting >= {MUST_MIN_DURATION:g} s with peak |slip ratio| >= "
     f"{MUST_LONG_SLIP:g}; other truth episodes are optional (no miss, no false alarm)"
 )
@@ -87,7 +85,7 @@ def must_detect(kind: str, duration: float, detail: Mapping[str, Any]) -> bool:
         beta = abs(float(detail.get("sideslip_residual", 0.0)))
         ay = abs(float(detail.get("max_abs_ay", math.inf)))
         mu = float(detail.get("min_mu", 0.0))
-        beyond = ay >= ENVELOPE * mu * GRAVITY
+        beyond = ay >= kinematic_envelope(mu)
         return beyond and (yaw >= MUST_LATERAL_YAW or beta >= MUST_LATERAL_BETA)
     if kind == "longitudinal_slip":
         return abs(float(detail.get("peak_slip_ratio", 0.0))) >= MUST_LONG_SLIP

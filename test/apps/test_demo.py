@@ -1,7 +1,7 @@
 """``kinematic-monitor demo``: offline quickly, live over DDS, clean errors, nothing left running.
 
 What is checked and against what:
-* the outputs the interface contract names (DESIGN.md section 4: events.json with schema
+* the outputs the interface contract names (docs/interface.md section 4: events.json with schema
   ``kinematic_monitor.events/1`` and report.html in the output folder; exit codes 0 / 2);
 * the demo drive's ice patch gives a lateral_slip event near the simulator's truth onset
   (detection_eval's matching window: start within [onset - 0.5 s, end + 1.0 s]);
@@ -70,7 +70,7 @@ def test_offline_demo_writes_report_and_finds_the_ice(tmp_path: Path,
     assert text.splitlines()[0] == CAUTION
     assert "summary of the offline replay" in text
     doc = json.loads((out / "report" / "events.json").read_text())
-    assert doc["schema"] == "kinematic_monitor.events/1"  # DESIGN.md section 4
+    assert doc["schema"] == "kinematic_monitor.events/1"  # docs/interface.md section 4
     assert (out / "report" / "report.html").stat().st_size > 0
     truth = json.loads((out / "drive" / "truth.json").read_text())
     ice = [t for t in truth["truth"] if t["kind"] == "lateral_slip"

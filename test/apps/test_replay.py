@@ -1,8 +1,8 @@
-"""`kinematic-monitor replay`: outputs, exit codes and bad input (DESIGN.md section 4).
+"""`kinematic-monitor replay`: outputs, exit codes and bad input (docs/interface.md section 4).
 
 Bags come from the project's simulator (short drives, written once per session) or are
 written directly with rosbags for malformed cases. The contract checked here is
-DESIGN.md section 4 (command, exit codes, events.json schema).
+docs/interface.md section 4 (command, exit codes, events.json schema).
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ from kinematic_monitor.apps import cli, replay
 from kinematic_monitor.io import readahead
 from kinematic_monitor.io.timeseries import DEFAULT_MIN_INTERVAL, TimeseriesWriter, read_timeseries
 
-# DESIGN.md section 4: the exact keys of an events.json entry and the allowed values
+# docs/interface.md section 4: the exact keys of an events.json entry and the allowed values
 EVENT_KEYS = {"start", "end", "detected_at", "kind", "level", "position", "peak", "summary"}
 KINDS = {"lateral_slip", "longitudinal_slip", "localization_fault", "calibration_bias",
          "input_stale"}
@@ -75,7 +75,7 @@ def test_replay_writes_contract_outputs(jump_bag: Path, tmp_path: Path,
     assert sorted(os.listdir(out)) == ["events.csv", "events.json", "report.html",
                                        "timeseries.csv"]
     doc = json.loads((out / "events.json").read_text())
-    # DESIGN.md section 4: schema name, source = the bag path, event keys and value sets
+    # docs/interface.md section 4: schema name, source = the bag path, event keys and value sets
     assert doc["schema"] == "kinematic_monitor.events/1"
     assert doc["source"] == str(jump_bag)
     assert set(doc) == {"schema", "source", "events"}
@@ -114,7 +114,7 @@ def test_replay_writes_contract_outputs(jump_bag: Path, tmp_path: Path,
 
 @pytest.mark.parametrize(("fail_on", "expected"), [("never", 0), ("warn", 1), ("error", 1)])
 def test_fail_on_exit_codes(jump_bag: Path, tmp_path: Path, fail_on: str, expected: int) -> None:
-    # DESIGN.md section 4: 1 when the --fail-on condition was met; the jump bag gives an
+    # docs/interface.md section 4: 1 when the --fail-on condition was met; the jump bag gives an
     # ERROR event (checked in the test above), which meets both 'warn' and 'error'
     assert _replay(jump_bag, tmp_path / "o", "--no-report", "--fail-on", fail_on) == expected
     assert not (tmp_path / "o" / "report.html").exists()
@@ -125,12 +125,12 @@ def test_fail_on_exit_codes(jump_bag: Path, tmp_path: Path, fail_on: str, expect
     (["ERROR"], "error", True), (["ERROR", "WARN"], "never", False),
 ])
 def test_fail_on_rule(levels: list[str], fail_on: str, met: bool) -> None:
-    # DESIGN.md section 4: warn -> any WARN or ERROR event, error -> any ERROR event
+    # docs/interface.md section 4: warn -> any WARN or ERROR event, error -> any ERROR event
     assert replay.fail_on_met([{"level": lv} for lv in levels], fail_on) is met
 
 
 def test_replay_does_not_change_the_core_result(jump_bag: Path, tmp_path: Path) -> None:
-    # DESIGN.md section 4: replay must give the events the core gives on the same samples
+    # docs/interface.md section 4: replay must give the events the core gives on the same samples
     # (reading statuses and predictions for the time series may not change decisions)
     from kinematic_monitor.config.files import load_config
     from kinematic_monitor.core.monitor import Monitor
@@ -186,7 +186,7 @@ def test_write_bag_adds_node_outputs(jump_bag: Path, tmp_path_factory: pytest.Te
         topics = {c.topic: (c.msgtype, c.msgcount) for c in r.connections}
         for topic, value in original.items():
             assert topics[topic] == value  # every input message copied
-        # DESIGN.md section 3: output topics and types
+        # docs/interface.md section 3: output topics and types
         assert topics["/diagnostics"][0] == "diagnostic_msgs/msg/DiagnosticArray"
         assert topics["/kinematic_monitor/prediction"][0] == "nav_msgs/msg/Odometry"
         assert topics["/kinematic_monitor/events"] == ("diagnostic_msgs/msg/DiagnosticStatus",
@@ -200,7 +200,7 @@ def test_write_bag_adds_node_outputs(jump_bag: Path, tmp_path_factory: pytest.Te
                 # REP 107: levels OK..STALE; names 'component: ...' with our prefix
                 assert 0 <= st.level <= 3
                 assert st.name.startswith("kinematic_monitor: ")
-        # DESIGN.md section 3: /diagnostics at >= 1 Hz (slack: one IMU sample, 5 ms)
+        # docs/interface.md section 3: /diagnostics at >= 1 Hz (slack: one IMU sample, 5 ms)
         assert max(b - a for a, b in zip(diag_times, diag_times[1:], strict=False)) <= 1.006
         log_times = [ts for _, ts, _ in r.messages()]
         assert log_times == sorted(log_times)
@@ -336,7 +336,8 @@ def test_progress_bar_quiet_under_ci(monkeypatch: pytest.MonkeyPatch) -> None:
 
 
 def test_bicycle_steer_follows_ackermann() -> None:
-    # DESIGN.md section 1: cot(d) = (cot(dl) + cot(dr)) / 2 for the bicycle-equivalent angle
+    # docs/interface.md section 1: cot(d) = (cot(dl) + cot(dr)) / 2 for the bicycle-equivalent
+    # angle; the time series shows the very angle the monitor used (model.ackermann_to_bicycle)
     from kinematic_monitor.core.samples import ChassisSample
 
     dl, dr = 0.20, 0.17
@@ -344,6 +345,9 @@ def test_bicycle_steer_follows_ackermann() -> None:
     got = replay._bicycle_steer(ChassisSample(1.0, steer_left=dl, steer_right=dr))
     assert got == pytest.approx(expected, rel=1e-12)
     assert replay._bicycle_steer(ChassisSample(1.0, steer_left=0.0, steer_right=0.0)) == 0.0
+    # toe noise around straight ahead (opposite signs): the monitor takes 0, and so does the
+    # time series (it used to show the plain mean)
+    assert replay._bicycle_steer(ChassisSample(1.0, steer_left=0.004, steer_right=-0.002)) == 0.0
 
 
 def test_timeseries_keeps_peaks_and_streams(tmp_path: Path) -> None:

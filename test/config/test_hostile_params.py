@@ -4,13 +4,13 @@ What test_params.py already covers (not repeated here): wrong types and ranges p
 non-finite numbers, a 100 000-entry joint list, YAML bombs, oversized/binary files. Added
 here:
 * every timeout negative, zero, huge or of the wrong type, from a file, names the parameter
-  (schema ranges in params.SPECS; DESIGN.md section 2: "a bad value stops start-up with a
+  (schema ranges in params.SPECS; docs/interface.md section 2: "a bad value stops start-up with a
   message naming the parameter, the value and the allowed range");
 * every spelling of a '..' path component in output.events_log is refused, POSIX and
   Windows separators alike (the path rule of params.SPECS: "a file path without '..'
   components");
 * the same files through both front ends: ``kinematic-monitor replay`` exits 2 naming the
-  parameter and writes nothing (DESIGN.md section 4), the node process exits 2 naming it
+  parameter and writes nothing (docs/interface.md section 4), the node process exits 2 naming it
   without a Python traceback;
 * ``replay --force`` into a directory holding a symlink under an output's name replaces
   the link and never writes through it (outputs.check_name / OutputDir contract).
@@ -135,7 +135,7 @@ def test_replay_refuses_hostile_file_and_writes_nothing(
     out = tmp_path / "out"
     rc = cli.main(["replay", str(_bag(tmp_path)), "--params", str(p), "--out", str(out)])
     err = capsys.readouterr().err
-    assert rc == 2, err  # DESIGN.md section 4: 2 = bad parameters
+    assert rc == 2, err  # docs/interface.md section 4: 2 = bad parameters
     assert name in err and "Traceback" not in err, err
     assert not out.exists() or not any(out.iterdir())
     assert not (tmp_path.parent / "escape.jsonl").exists()

@@ -95,14 +95,15 @@ def test_every_spec_is_documented_with_a_unit() -> None:
 
 
 def test_typed_groups_match_the_schema() -> None:
-    # every typed attribute is a schema parameter (a spec may exist without one; get() serves)
-    assert set(validation.group_field_names()) <= set(SPEC_BY_NAME)
+    # the typed groups are the one way code reads parameters: every schema parameter has
+    # exactly one typed attribute, holding the validated value
+    assert set(validation.group_field_names()) == set(SPEC_BY_NAME)
     cfg = validate(GEOMETRY)
     for name in validation.group_field_names():
         obj: Any = cfg
         for part in name.split("."):
             obj = getattr(obj, part)
-        assert obj == cfg.get(name), name
+        assert obj == cfg.values[name], name
 
 
 def test_topics_and_joints_fixed_thresholds_runtime_changeable() -> None:
@@ -171,11 +172,9 @@ def test_defaults_fill_in() -> None:
     cfg = validate(GEOMETRY)
     assert cfg.checks.min_speed == 1.0
     assert cfg.checks.nis_window == 50 and isinstance(cfg.checks.nis_window, int)
-    assert cfg.get("inputs.imu.topic") == "/imu/data"
+    assert cfg.inputs.imu.topic == "/imu/data"
     assert cfg.inputs.joint_states.steering_joints == ("front_left_steer_joint",
                                                        "front_right_steer_joint")
-    with pytest.raises(KeyError, match="no.such"):
-        cfg.get("no.such")
 
 
 def test_missing_geometry_names_wheelbase() -> None:

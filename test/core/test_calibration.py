@@ -5,7 +5,7 @@ The generator follows the kinematic bicycle model in its rear-axle form (Rajaman
 memory for the section: rear axle moves along the heading at v_r, yaw rate
 v_r tan(delta) / L, CG lateral velocity l_r * yaw rate) plus the steady-state understeer
 term delta = L/R + K a_y (Gillespie, *Fundamentals of Vehicle Dynamics*, SAE 1992, ch. 6),
-with Ackermann wheel angles cot d_l/r = cot d -+ w/(2L) (DESIGN.md section 1). Known
+with Ackermann wheel angles cot d_l/r = cot d -+ w/(2L) (docs/interface.md section 1). Known
 offsets, scales and geometry are injected and white noise of stated size is added; the
 estimator must recover them within its stated standard errors.
 """

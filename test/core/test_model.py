@@ -218,7 +218,7 @@ def test_bicycle_to_ackermann_hand_worked_icr():
 @given(st.floats(min_value=-0.7, max_value=0.7))
 def test_ackermann_round_trip(delta):
     # cot(delta) = (cot dl + cot dr)/2 inverts cot dl,r = cot delta -+ w/(2L)
-    # (Ackermann relation as in DESIGN.md section 1)
+    # (Ackermann relation as in docs/interface.md section 1)
     left, right = m.bicycle_to_ackermann(delta, P)
     assert m.ackermann_to_bicycle(left, right, P) == pytest.approx(delta, abs=1e-12)
     if delta > 1e-9:

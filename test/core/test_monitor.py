@@ -153,7 +153,7 @@ def test_event_json_matches_contract_schema() -> None:
     m = run(samples)
     m.flush(samples[-1].stamp)  # type: ignore[attr-defined]
     doc = json.loads(json.dumps(events_to_json("/bags/x", m.events), allow_nan=False))
-    # DESIGN.md section 4: schema name and exactly these keys
+    # docs/interface.md section 4: schema name and exactly these keys
     assert set(doc) == {"schema", "source", "events"}
     assert doc["schema"] == "kinematic_monitor.events/1"
     assert doc["events"]

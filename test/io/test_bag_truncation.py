@@ -2,7 +2,7 @@
 
 A logger killed mid-write leaves a data file cut anywhere: inside the file header, inside
 a record, inside an index. Defined outcome of ``kinematic-monitor replay`` (contract,
-/work/shared/DESIGN.md section 4): exit 0 with every output written and the loss reported
+docs/interface.md section 4): exit 0 with every output written and the loss reported
 (``lost_data`` in the JSON summary, the report), or exit 2 with a message naming the bag
 when nothing at all can be read; never an uncaught exception. Expected message counts come
 from the bag's own metadata.yaml (the rosbag2 metadata format), which the cut leaves intact.

@@ -1,4 +1,4 @@
-"""Event records and writers against the contract (DESIGN.md section 4, schema
+"""Event records and writers against the contract (docs/interface.md section 4, schema
 ``kinematic_monitor.events/1``) and RFC 8259 JSON (no NaN: ``allow_nan=False``)."""
 
 from __future__ import annotations
@@ -36,7 +36,7 @@ def _event(**kw: object) -> Event:
 
 def test_json_document_matches_contract_example() -> None:
     doc = events_to_json("/data/run1", [_event()])
-    # the example in DESIGN.md section 4, key for key
+    # the example in docs/interface.md section 4, key for key
     assert doc == {
         "schema": "kinematic_monitor.events/1",
         "source": "/data/run1",

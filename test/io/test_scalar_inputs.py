@@ -29,7 +29,7 @@ GEOMETRY = {"vehicle.wheelbase": 2.7, "vehicle.cg_to_rear_axle": 1.35,
 
 def settings(**values: object) -> list[si.ScalarSettings]:
     cfg = validation.validate({**GEOMETRY, **values})
-    return si.scalar_settings(cfg.get)
+    return si.scalar_settings(cfg)
 
 
 def test_disabled_by_default() -> None:

@@ -1,6 +1,6 @@
 """Fault tests of the node process over DDS: SIGKILL mid-event, SIGINT/SIGTERM mid-event.
 
-Contract checked (/work/shared/DESIGN.md section 3): the JSON-lines event log is written
+Contract checked (docs/interface.md section 3): the JSON-lines event log is written
 and flushed as each event starts and ends, "so nothing is lost if the node dies". After a
 SIGKILL (no handler can run) every line of the log must parse as JSON (RFC 8259, via the
 standard json module) and hold the event started before the kill. SIGINT/SIGTERM stop the

@@ -2,12 +2,12 @@
 
 What is checked and against what:
 * start-up refusal of a bad value with exit code 2 and a message naming parameter, value
-  and allowed range: the interface contract, /work/shared/DESIGN.md sections 2 and 4;
+  and allowed range: the interface contract, docs/interface.md sections 2 and 4;
 * the parameter file of the launch file (config/kinematic_monitor.yaml) is what the node
   reports: values compared with the file read independently by PyYAML;
 * /diagnostics levels OK / STALE (REP 107: OK=0, WARN=1, ERROR=2, STALE=3; names
   "component: ..." as REP 107 / diagnostic_msgs describe);
-* events on ~/events and in the JSON-lines log (DESIGN.md section 3; kinds and levels of
+* events on ~/events and in the JSON-lines log (docs/interface.md section 3; kinds and levels of
   the events.json schema in section 4);
 * SIGINT/SIGTERM ends the node within 2 s (the project brief; common practice, no source).
 """
@@ -71,7 +71,7 @@ def _wait_output(proc: Proc, text: str, timeout: float) -> bool:
 @pytest.mark.parametrize(
     ("vehicle", "name", "value_text", "allowed_text"),
     [
-        # DESIGN.md section 2: the geometry must be physical; wheelbase (0, 20] m
+        # docs/interface.md section 2: the geometry must be physical; wheelbase (0, 20] m
         ({"wheelbase": -1.0}, "vehicle.wheelbase", "-1.0", "(0, 20]"),
     ],
 )
@@ -82,12 +82,12 @@ def test_bad_parameter_file_exits_2_naming_the_parameter(
     node = run.node(params)
     code = node.wait(timeout=20.0)
     out = node.output()
-    assert code == 2, out  # DESIGN.md section 4: 2 = bad parameters
+    assert code == 2, out  # docs/interface.md section 4: 2 = bad parameters
     assert name in out and value_text in out and allowed_text in out, out
 
 
 def test_missing_required_geometry_exits_2(run: Run) -> None:
-    # DESIGN.md section 2: defaults exist for everything except the vehicle geometry
+    # docs/interface.md section 2: defaults exist for everything except the vehicle geometry
     p = run.tmp / "nogeo.yaml"
     p.write_text("kinematic_monitor:\n  ros__parameters:\n    inputs:\n      qos: reliable\n")
     node = run.node(p)

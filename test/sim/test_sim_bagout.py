@@ -131,7 +131,7 @@ def test_truth_json_and_params_yaml(tmp_path: Path) -> None:
         "count": 21 - 5,
     }
     assert doc["sensors"]["imu"]["rate_hz"] == 200.0
-    # the params file loads with the node's own schema loader (DESIGN.md section 2)
+    # the params file loads with the node's own schema loader (docs/interface.md section 2)
     cfg = load_config(out.params)
     assert cfg.vehicle.wheelbase == 2.70
     assert cfg.vehicle.cg_to_rear_axle == 1.35

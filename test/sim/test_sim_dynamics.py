@@ -172,7 +172,7 @@ def test_wheels_spin_on_ice_and_lock_under_hard_braking():
 
 
 def test_ackermann_angles_follow_cot_rule():
-    # Ackermann geometry (DESIGN.md 1): cot d = (cot d_l + cot d_r)/2 and
+    # Ackermann geometry (docs/interface.md 1): cot d = (cot d_l + cot d_r)/2 and
     # cot d_l - cot d_r = -t/L for a left turn (inner wheel steers more)
     L, t = 2.7, 1.55
     for d in (0.05, 0.3, -0.2):

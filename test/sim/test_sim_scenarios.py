@@ -66,7 +66,8 @@ def test_trace_accelerations_are_consistent_with_velocities():
         d_int = cum[n:] - cum[:-n]
         d_vel = vel[n:] - vel[:-n]
         assert np.max(np.abs(d_int - d_vel)) < 0.01  # measured 0.005 m/s (vy), 0.0004 (vx)
-    # bicycle-equivalent steering from the left/right angles (DESIGN.md 1, Ackermann)
+    # bicycle-equivalent steering from the left/right angles (docs/interface.md section 1,
+    # Ackermann)
     i = int(np.argmax(np.abs(tr.steer)))
     cot = (1 / math.tan(tr.steer_left[i]) + 1 / math.tan(tr.steer_right[i])) / 2
     assert math.tan(tr.steer[i]) == pytest.approx(1 / cot, rel=1e-9)

@@ -132,7 +132,7 @@ def test_joint_names_and_ackermann_consistency() -> None:
         d_l, d_r = r.position[0], r.position[1]
         # REP 103 left turn: the inner (left) road wheel steers more than the outer one
         assert d_l > delta > d_r > 0
-        # Ackermann geometry (DESIGN.md section 1): cot d = (cot d_l + cot d_r)/2
+        # Ackermann geometry (docs/interface.md section 1): cot d = (cot d_l + cot d_r)/2
         cot = 0.5 * (1.0 / math.tan(d_l) + 1.0 / math.tan(d_r))
         assert math.atan(1.0 / cot) == pytest.approx(delta, abs=1e-12)
 

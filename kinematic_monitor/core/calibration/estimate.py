@@ -209,7 +209,7 @@ def steering_wheel_input(config: Any) -> bool:
 
     def get(name: str, default: Any) -> Any:
         try:
-            return config[name] if isinstance(config, Mapping) else config.get(name)
+            return config[name] if isinstance(config, Mapping) else config.values[name]
         except KeyError:
             return default
 
@@ -226,7 +226,7 @@ def _vehicle(config: Any) -> _Vehicle:
             if isinstance(config, Mapping):
                 value = config[name]
             else:
-                value = config.get(name)
+                value = config.values[name]
         except KeyError:
             if default is None:
                 raise CalibrationError(f"parameter '{name}' is required") from None

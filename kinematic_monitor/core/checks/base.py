@@ -18,9 +18,11 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, ClassVar, Protocol
 
 from kinematic_monitor.core.levels import ERROR, LEVEL_NAMES, OK, WARN
+from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.stats import Cusum, arl_for_rate, cusum_threshold
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
+    from kinematic_monitor.config.validation import ChecksConfig, MonitorConfig, NoiseConfig
     from kinematic_monitor.core.triage import Evidence
 
 PREFIX = "kinematic_monitor: "
@@ -284,6 +286,44 @@ class BlockMean:
                              self.noise_var / self.n, max(1, min(self.n, n_eff_cap)))
 
 
+@dataclass
+class CheckContext:
+    """What every check is built from: the shared latest inputs, where it reports, the
+    decision period [s], the configuration, and the monitor's notes and counters."""
+
+    state: MotionState
+    book: EventSink
+    period: float
+    config: MonitorConfig
+    notes: list[tuple[float, str]] = field(default_factory=list)
+    counters: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def noise(self) -> NoiseConfig:
+        """``noise.*``: the configured sensor noise."""
+        return self.config.noise
+
+    @property
+    def checks(self) -> ChecksConfig:
+        """``checks.*``: thresholds and timing."""
+        return self.config.checks
+
+    def error_rate(self) -> float:
+        """False ERROR alarms per hour allowed [1/h]: checks.false_alarm_rate · (1 −
+        checks.error_confidence)."""
+        c = self.checks
+        return c.false_alarm_rate * (1.0 - c.error_confidence)
+
+    def cusum(self, decisions_per_second: float | None = None) -> CusumTest:
+        """A CUSUM test taking ``decisions_per_second`` values (default: one per decision
+        period) with the configured false-alarm rates and durations."""
+        rate = decisions_per_second if decisions_per_second else 1.0 / self.period
+        k, h_warn, h_error = cusum_thresholds(self.checks.false_alarm_rate, self.error_rate(),
+                                              rate)
+        return CusumTest(k, h_warn, h_error, self.checks.min_duration,
+                         self.checks.clear_duration)
+
+
 class Check:
     """Base of every check.
 
@@ -301,7 +341,11 @@ class Check:
     #: ... and only while the check itself holds the event open
     peaks_own_events_only: ClassVar[bool] = False
 
-    def __init__(self, needs: Iterable[str] = ()) -> None:
+    def __init__(self, ctx: CheckContext, needs: Iterable[str] = ()) -> None:
+        self.ctx = ctx
+        self.state = ctx.state
+        self.book = ctx.book
+        self.noise = ctx.noise
         self.needs = frozenset(needs)
         self.figures: dict[str, float] = {}
 
@@ -335,13 +379,32 @@ class Check:
         """Add what this check knows to the evidence of an alarm on its own channel."""
 
 
+class ThresholdCheck(Check):
+    """A check whose test is a :class:`ThresholdTest` on a magnitude."""
+
+    def __init__(self, ctx: CheckContext, test: ThresholdTest, needs: Iterable[str] = ()
+                 ) -> None:
+        super().__init__(ctx, needs)
+        self.test = test
+
+    @property
+    def level(self) -> int:
+        """Current level (OK/WARN/ERROR)."""
+        return self.test.level
+
+    @property
+    def tracker(self) -> LevelTracker:
+        """The threshold test's level tracker."""
+        return self.test.tracker
+
+
 class CusumCheck(Check):
     """A check whose test is a :class:`CusumTest` on standardised residuals."""
 
-    def __init__(self, test: CusumTest, book: EventSink, needs: Iterable[str] = ()) -> None:
-        super().__init__(needs)
-        self.test = test
-        self.book = book
+    def __init__(self, ctx: CheckContext, needs: Iterable[str] = (),
+                 test: CusumTest | None = None) -> None:
+        super().__init__(ctx, needs)
+        self.test = test if test is not None else ctx.cusum()
 
     @property
     def level(self) -> int:
@@ -372,10 +435,9 @@ class BlockCheck(CusumCheck):
     #: unit of the residual, used in the figure name ``block_mean_residual [unit]``
     unit: ClassVar[str] = "-"
 
-    def __init__(self, test: CusumTest, book: EventSink, period: float,
-                 needs: Iterable[str] = ()) -> None:
-        super().__init__(test, book, needs)
-        self.period = period
+    def __init__(self, ctx: CheckContext, needs: Iterable[str] = ()) -> None:
+        super().__init__(ctx, needs)
+        self.period = ctx.period
         self.block = BlockMean()
 
     def decide(self, t: float, n_eff_cap: int, active: bool) -> None:

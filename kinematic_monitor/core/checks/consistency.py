@@ -12,9 +12,8 @@ from __future__ import annotations
 import functools
 from collections import deque
 
-from kinematic_monitor.core.checks.base import Check
+from kinematic_monitor.core.checks.base import Check, CheckContext
 from kinematic_monitor.core.levels import OK, WARN
-from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.stats import SECONDS_PER_HOUR, chi2_upper, mean_nis_bounds
 
 
@@ -35,12 +34,10 @@ class FilterConsistencyCheck(Check):
     name = "nis"
     label = "filter consistency"
 
-    def __init__(self, state: MotionState, window: int, false_alarm_rate: float) -> None:
-        super().__init__(("localization",))
-        self.window = window
-        self.false_alarm_rate = false_alarm_rate
-        self.state = state
-        self.nis: deque[float] = deque(maxlen=max(1, window))
+    def __init__(self, ctx: CheckContext) -> None:
+        super().__init__(ctx, ("localization",))
+        self.window = ctx.checks.nis_window
+        self.nis: deque[float] = deque(maxlen=max(1, self.window))
         self.dof = 3
 
     def add(self, nis: float) -> None:
@@ -59,7 +56,7 @@ class FilterConsistencyCheck(Check):
         # the update rate in whole Hz, as for the jump bounds: the bounds are then computed
         # once per rate (the estimate jitters with the stamps)
         rate = max(1, round(self.state.loc_rate_guess))
-        lo, hi, hi_fa = nis_bounds(self.dof, n, rate, self.false_alarm_rate)
+        lo, hi, hi_fa = nis_bounds(self.dof, n, rate, self.ctx.checks.false_alarm_rate)
         figs = {"mean_nis [-]": mean, "mean_nis_95_lower [-]": lo,
                 "mean_nis_95_upper [-]": hi, "mean_nis_warn [-]": hi_fa}
         if mean > hi_fa:

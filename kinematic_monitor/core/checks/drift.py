@@ -14,11 +14,10 @@ import math
 from typing import TYPE_CHECKING
 
 from kinematic_monitor.core import model
-from kinematic_monitor.core.checks.base import CusumCheck, CusumTest, EventSink, mean_excess_z
+from kinematic_monitor.core.checks.base import CheckContext, CusumCheck, mean_excess_z
 from kinematic_monitor.core.checks.sideslip import SIDESLIP_TOLERANCE, SideslipCheck
 from kinematic_monitor.core.checks.yaw_rate import LATERAL_KINDS, YawRateCheck
 from kinematic_monitor.core.geometry import angle_diff, pose_error
-from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.samples import ImuSample
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -36,16 +35,13 @@ class DriftCheck(CusumCheck):
     label = "drift"
     peak_kinds = LATERAL_KINDS
 
-    def __init__(self, state: MotionState, test: CusumTest, book: EventSink,
-                 yaw_rate: YawRateCheck, sideslip: SideslipCheck, horizon: float,
-                 steer_std: float, imu_std: float) -> None:
-        super().__init__(test, book, ("joint_states", "localization"))
-        self.state = state
+    def __init__(self, ctx: CheckContext, yaw_rate: YawRateCheck, sideslip: SideslipCheck
+                 ) -> None:
+        horizon = ctx.checks.drift_horizon
+        super().__init__(ctx, ("joint_states", "localization"), ctx.cusum(1.0 / horizon))
         self.yaw_rate = yaw_rate
         self.sideslip = sideslip
         self.horizon = horizon
-        self.steer_std = steer_std
-        self.imu_std = imu_std
         self._dr: tuple[float, float, float] | None = None  # dead-reckoned CG pose
         self._dr_t = math.nan
         self._anchor_t = math.nan
@@ -100,7 +96,7 @@ class DriftCheck(CusumCheck):
         dist = max(self._dist, 1e-6)
         n_eff = max(1, self._n_chassis)
         sd_yaw_pred = self.horizon * abs(st.speed) / st.p.wheelbase * (
-            self.steer_std / math.sqrt(n_eff))
+            self.noise.steering_angle_std / math.sqrt(n_eff))
         var_lat = 2.0 * sp**2 + (0.5 * dist * sd_yaw_pred) ** 2 + (dist * sy) ** 2
         h = max(stamp - self._anchor_t, 1e-6)
         allow_yaw = self.yaw_rate.allowance * h
@@ -111,7 +107,8 @@ class DriftCheck(CusumCheck):
         sd_rate = (math.sqrt(2.0 * sy**2 + sd_yaw_pred**2) + allow_yaw) / h
         # heading change: two localisation yaws, and an integrated IMU rate whose white
         # noise grows as σ·sqrt(h·dt_imu)
-        sd_meas = math.hypot(math.sqrt(2.0) * sy, self.imu_std * math.sqrt(IMU_DT * h)) / h
+        sd_meas = math.hypot(math.sqrt(2.0) * sy,
+                             self.noise.imu_yaw_rate_std * math.sqrt(IMU_DT * h)) / h
         self.rates = (self._dyaw / h, self._imu_dyaw / h, loc_dyaw / h, sd_rate, sd_meas)
         moving = st.moving() and dist >= st.min_speed * self.horizon * 0.5
         self.figures.update({"drift_lateral [m]": lat, "drift_longitudinal [m]": lon,

@@ -10,36 +10,23 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import Check, LevelTracker, ThresholdTest
+from kinematic_monitor.core.checks.base import CheckContext, ThresholdCheck, ThresholdTest
 from kinematic_monitor.core.checks.yaw_rate import LATERAL_KINDS
 from kinematic_monitor.core.levels import OK
 from kinematic_monitor.core.model import GRAVITY, kinematic_envelope
-from kinematic_monitor.core.motion import MotionState
 
 
-class GripCheck(Check):
+class GripCheck(ThresholdCheck):
     """See the module docstring."""
 
     name = "grip"
     label = "grip"
     peak_kinds = LATERAL_KINDS
 
-    def __init__(self, state: MotionState, friction: float, min_duration: float,
-                 clear_duration: float) -> None:
-        super().__init__(())
-        self.state = state
-        self.test = ThresholdTest(kinematic_envelope(friction), math.inf, min_duration,
-                                  clear_duration)
-
-    @property
-    def level(self) -> int:
-        """WARN outside the envelope."""
-        return self.test.level
-
-    @property
-    def tracker(self) -> LevelTracker:
-        """The threshold test's level tracker."""
-        return self.test.tracker
+    def __init__(self, ctx: CheckContext) -> None:
+        c = ctx.checks
+        super().__init__(ctx, ThresholdTest(kinematic_envelope(c.friction_assumed), math.inf,
+                                            c.min_duration, c.clear_duration))
 
     def lateral_acceleration(self) -> float:
         """|a_y| source: the IMU's, else speed · measured yaw rate [m/s²] (NaN: unknown)."""

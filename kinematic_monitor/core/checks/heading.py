@@ -12,10 +12,9 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import BlockCheck, CusumTest, EventSink
+from kinematic_monitor.core.checks.base import BlockCheck, CheckContext
 from kinematic_monitor.core.checks.drift import IMU_DT
 from kinematic_monitor.core.geometry import angle_diff
-from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.samples import ImuSample
 
 #: localisation updates before the offset counts as settled
@@ -29,13 +28,9 @@ class HeadingCheck(BlockCheck):
     label = "localization heading"
     unit = "rad"
 
-    def __init__(self, state: MotionState, test: CusumTest, book: EventSink, period: float,
-                 time_constant: float, tolerance: float, imu_std: float) -> None:
-        super().__init__(test, book, period, ("localization", "imu"))
-        self.state = state
-        self.tau = max(time_constant, 0.1)
-        self.tolerance = tolerance
-        self.imu_std = imu_std
+    def __init__(self, ctx: CheckContext) -> None:
+        super().__init__(ctx, ("localization", "imu"))
+        self.tau = max(ctx.checks.heading_time_constant, 0.1)
         self._heading = 0.0  # IMU-integrated heading [rad]
         self._heading_t = math.nan
         self._offset = math.nan
@@ -82,5 +77,5 @@ class HeadingCheck(BlockCheck):
         # e = noise of this yaw minus the offset's own error (averaged over ~n samples);
         # the integrated IMU noise grows as σ·sqrt(dt_imu·τ)
         n_off = min(float(self._n), n_ema)
-        noise = sy**2 * (1.0 + 1.0 / n_off) + (self.imu_std**2) * IMU_DT * self.tau
-        self.block.add(e, noise, self.tolerance, st.moving())
+        noise = sy**2 * (1.0 + 1.0 / n_off) + (self.noise.imu_yaw_rate_std**2) * IMU_DT * self.tau
+        self.block.add(e, noise, self.ctx.checks.heading_tolerance, st.moving())

@@ -11,9 +11,8 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING
 
-from kinematic_monitor.core.checks.base import Check, EventSink, LevelTracker
+from kinematic_monitor.core.checks.base import Check, CheckContext, LevelTracker
 from kinematic_monitor.core.levels import ERROR, OK, STALE, WARN
-from kinematic_monitor.core.motion import MotionState
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from kinematic_monitor.core.triage import Evidence
@@ -25,14 +24,12 @@ class InputCheck(Check):
     peak_kinds = ("input_stale",)
     peaks_own_events_only = True
 
-    def __init__(self, state: MotionState, book: EventSink, input_name: str) -> None:
-        super().__init__(())
-        self.state = state
-        self.book = book
+    def __init__(self, ctx: CheckContext, input_name: str) -> None:
+        super().__init__(ctx, ())
         self.input_name = input_name
         self.name = f"input_{input_name}"  # type: ignore[misc]
         self.label = f"input {input_name}"  # type: ignore[misc]
-        self.timeout = state.timeouts[input_name]
+        self.timeout = ctx.state.timeouts[input_name]
         self._tracker = LevelTracker(0.0, 0.0)
 
     @property

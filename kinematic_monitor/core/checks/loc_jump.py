@@ -19,13 +19,11 @@ from kinematic_monitor.core import model
 from kinematic_monitor.core.checks.base import (
     MODEL_TOLERANCE,
     YAW_RATE_TOLERANCE,
-    Check,
-    EventSink,
-    LevelTracker,
+    CheckContext,
+    ThresholdCheck,
     ThresholdTest,
 )
 from kinematic_monitor.core.geometry import pose_error
-from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.samples import LocalizationSample
 from kinematic_monitor.core.stats import SECONDS_PER_HOUR, chi2_upper
 
@@ -43,39 +41,17 @@ def jump_bounds(warn_per_hour: float, error_per_hour: float, rate_hz: int
             chi2_upper(3, 1.0 - error_per_hour / updates))
 
 
-class LocalizationJumpCheck(Check):
+class LocalizationJumpCheck(ThresholdCheck):
     """See the module docstring."""
 
     name = "localization"
     label = "localization jump"
     peak_kinds = ("localization_fault",)
 
-    def __init__(self, state: MotionState, book: EventSink, notes: list[tuple[float, str]],
-                 counters: dict[str, int], warn_per_hour: float, error_per_hour: float,
-                 clear_duration: float, wheel_speed_std: float, loc_velocity_std: float,
-                 imu_std: float) -> None:
-        super().__init__(("localization",))
-        self.state = state
-        self.book = book
-        self.notes = notes
-        self.counters = counters
-        self.warn_per_hour = warn_per_hour
-        self.error_per_hour = error_per_hour
-        self.test = ThresholdTest(math.inf, math.inf, 0.0, clear_duration)
-        self.wheel_speed_std = wheel_speed_std
-        self.loc_velocity_std = loc_velocity_std
-        self.imu_std = imu_std
+    def __init__(self, ctx: CheckContext) -> None:
+        super().__init__(ctx, ThresholdTest(math.inf, math.inf, 0.0, ctx.checks.clear_duration),
+                         ("localization",))
         self.declared_reset_t = -math.inf
-
-    @property
-    def level(self) -> int:
-        """Current level (OK/WARN/ERROR)."""
-        return self.test.level
-
-    @property
-    def tracker(self) -> LevelTracker:
-        """The threshold test's level tracker."""
-        return self.test.tracker
 
     def status_message(self, level: int, active: bool, summary: str | None,
                        inactive: str) -> str:
@@ -101,7 +77,7 @@ class LocalizationJumpCheck(Check):
         # (a) kinematic prediction from the previous pose
         pred = model.step(x0, y0, yaw0, st.speed, st.delta, dt, st.p)
         lon, lat, dyaw = pose_error(pred, pose)
-        sig_v = self.wheel_speed_std * st.p.effective_wheel_radius
+        sig_v = self.noise.wheel_speed_std * st.p.effective_wheel_radius
         var_p = sp**2 + sp0**2 + (dt * sig_v) ** 2 + (MODEL_TOLERANCE * abs(st.speed)
                                                       * dt) ** 2
         var_y = 2.0 * sy**2 + (dt * (MODEL_TOLERANCE * abs(rate) + YAW_RATE_TOLERANCE)) ** 2
@@ -112,7 +88,8 @@ class LocalizationJumpCheck(Check):
             nis_jump = min(nis_jump, self._measured_motion_nis(
                 s, sp, sy, pose, prev, dt, m_rate))
         test = self.test
-        test.warn, test.error = jump_bounds(self.warn_per_hour, self.error_per_hour,
+        test.warn, test.error = jump_bounds(self.ctx.checks.false_alarm_rate,
+                                            self.ctx.error_rate(),
                                             max(1, round(st.loc_rate_guess)))
         jump_pos = math.hypot(lon, lat)
         f = self.figures
@@ -123,10 +100,11 @@ class LocalizationJumpCheck(Check):
         declared = self.declared_reset_t >= t0 or (sp < 0.5 * sp0)
         jumped = nis_jump >= test.warn
         if jumped and declared:
-            self.counters["relocalizations"] += 1
-            self.notes.append((s.stamp, f"relocalisation declared: jumped {jump_pos:.2f} m "
-                               "(note, not a fault)"))
-            self.counters["notes"] += 1
+            counters = self.ctx.counters
+            counters["relocalizations"] += 1
+            self.ctx.notes.append((s.stamp, f"relocalisation declared: jumped {jump_pos:.2f} m "
+                                   "(note, not a fault)"))
+            counters["notes"] += 1
             nis_jump = 0.0
         self.book.handle(self.name, test.update(nis_jump, s.stamp), s.stamp,
                          extra={"loc_jump": jump_pos})
@@ -146,9 +124,9 @@ class LocalizationJumpCheck(Check):
               yaw0 + m_rate * dt)
         lon_m, lat_m, dyaw_m = pose_error(pm, pose)
         a_max = MAX_ACCELERATION
-        var_pm = sp**2 + sp0**2 + 2.0 * (dt * self.loc_velocity_std) ** 2 \
+        var_pm = sp**2 + sp0**2 + 2.0 * (dt * self.noise.localization_velocity_std) ** 2 \
             + (0.5 * a_max * dt * dt) ** 2
-        var_ym = 2.0 * sy**2 + (dt * self.imu_std) ** 2 + (
+        var_ym = 2.0 * sy**2 + (dt * self.noise.imu_yaw_rate_std) ** 2 + (
             0.5 * a_max / self.state.p.wheelbase * dt * dt) ** 2
         return (lon_m**2 + lat_m**2) / var_pm + dyaw_m**2 / var_ym
 

@@ -12,9 +12,8 @@ from __future__ import annotations
 import math
 
 from kinematic_monitor.core import model
-from kinematic_monitor.core.checks.base import MODEL_TOLERANCE, BlockCheck, CusumTest, EventSink
+from kinematic_monitor.core.checks.base import MODEL_TOLERANCE, BlockCheck, CheckContext
 from kinematic_monitor.core.checks.yaw_rate import LATERAL_KINDS
-from kinematic_monitor.core.motion import MotionState
 
 #: absolute sideslip error allowed to the kinematic prediction [rad] (common practice,
 #: no source)
@@ -32,12 +31,8 @@ class SideslipCheck(BlockCheck):
     unit = "rad"
     peak_kinds = LATERAL_KINDS
 
-    def __init__(self, state: MotionState, test: CusumTest, book: EventSink, period: float,
-                 steer_std: float, loc_velocity_std: float) -> None:
-        super().__init__(test, book, period, ("joint_states", "localization"))
-        self.state = state
-        self.steer_std = steer_std
-        self.loc_velocity_std = loc_velocity_std
+    def __init__(self, ctx: CheckContext) -> None:
+        super().__init__(ctx, ("joint_states", "localization"))
         self.allowance = 0.0
 
     def on_velocity(self, vx: float, vy_cg: float, rate: float, moving: bool) -> None:
@@ -46,8 +41,9 @@ class SideslipCheck(BlockCheck):
         p = st.p
         beta_m = math.atan2(vy_cg, vx) if vx >= 0 else math.atan2(-vy_cg, -vx)
         beta_k = model.sideslip(st.delta, p)
-        noise = (self.loc_velocity_std / max(abs(vx), st.min_speed, 0.1)) ** 2 + (
-            p.cg_to_rear_axle / p.wheelbase * self.steer_std) ** 2
+        n = self.noise
+        noise = (n.localization_velocity_std / max(abs(vx), st.min_speed, 0.1)) ** 2 + (
+            p.cg_to_rear_axle / p.wheelbase * n.steering_angle_std) ** 2
         ay = abs(st.ay) if math.isfinite(st.ay) else (
             abs(vx * rate) if math.isfinite(rate) else 0.0)
         allow = MODEL_TOLERANCE * abs(beta_k) + SIDESLIP_TOLERANCE + (

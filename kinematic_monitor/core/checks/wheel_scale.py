@@ -12,8 +12,7 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import BlockCheck, CusumTest, EventSink
-from kinematic_monitor.core.motion import MotionState
+from kinematic_monitor.core.checks.base import BlockCheck, CheckContext
 
 #: rolling-radius error tolerated [-] (common practice, no source)
 WHEEL_SCALE_TOLERANCE = 0.01
@@ -29,12 +28,8 @@ class WheelScaleCheck(BlockCheck):
     label = "wheel speed scale"
     unit = "-"
 
-    def __init__(self, state: MotionState, test: CusumTest, book: EventSink, period: float,
-                 wheel_speed_std: float, loc_velocity_std: float) -> None:
-        super().__init__(test, book, period, ("joint_states", "localization"))
-        self.state = state
-        self.wheel_speed_std = wheel_speed_std
-        self.loc_velocity_std = loc_velocity_std
+    def __init__(self, ctx: CheckContext) -> None:
+        super().__init__(ctx, ("joint_states", "localization"))
 
     def on_slips(self, k_front: float, k_rear: float, vx: float, moving: bool) -> None:
         """Axle slip ratios [-] of one localisation sample at forward speed ``vx`` [m/s]."""
@@ -42,8 +37,8 @@ class WheelScaleCheck(BlockCheck):
         k_cal = 0.0
         if k_front * k_rear > 0.0:
             k_cal = math.copysign(min(abs(k_front), abs(k_rear)), k_front)
-        sw = self.wheel_speed_std * st.p.effective_wheel_radius
-        sv = self.loc_velocity_std
+        sw = self.noise.wheel_speed_std * st.p.effective_wheel_radius
+        sv = self.noise.localization_velocity_std
         noise = (sw**2 / 2.0 + sv**2) / max(abs(vx), st.min_speed) ** 2
         imu = st.imu
         ax = imu.ax if imu is not None and st.imu_fresh() else math.nan

@@ -12,10 +12,10 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import Check, EventSink, LevelTracker, ThresholdTest
-from kinematic_monitor.core.motion import MotionState
+from kinematic_monitor.core.checks.base import CheckContext, ThresholdCheck, ThresholdTest
 
-SLIP_KINDS = ("longitudinal_slip", "calibration_bias")
+#: event kinds that keep this check's slip ratios as peak figures
+PEAK_KINDS = ("longitudinal_slip", "calibration_bias")
 
 
 def slip_ratio(wheel_speed: float, ground_speed: float, min_speed: float) -> float:
@@ -30,33 +30,21 @@ def slip_ratio(wheel_speed: float, ground_speed: float, min_speed: float) -> flo
     return (wheel_speed - ground_speed) / max(abs(ground_speed), min_speed)
 
 
-class WheelSlipCheck(Check):
+class WheelSlipCheck(ThresholdCheck):
     """See the module docstring."""
 
     name = "slip_ratio"
     label = "wheel slip"
-    peak_kinds = SLIP_KINDS
+    peak_kinds = PEAK_KINDS
 
-    def __init__(self, state: MotionState, book: EventSink, period: float, warn: float,
-                 error: float, min_duration: float, clear_duration: float) -> None:
-        super().__init__(("joint_states", "localization"))
-        self.state = state
-        self.book = book
-        self.period = period
-        self.warn = warn
-        self.test = ThresholdTest(warn, error, min_duration, clear_duration)
+    def __init__(self, ctx: CheckContext) -> None:
+        c = ctx.checks
+        super().__init__(ctx, ThresholdTest(c.slip_ratio_warn, c.slip_ratio_error,
+                                            c.min_duration, c.clear_duration),
+                         ("joint_states", "localization"))
+        self.period = ctx.period
         self._front: list[float] = []
         self._rear: list[float] = []
-
-    @property
-    def level(self) -> int:
-        """Current level (OK/WARN/ERROR)."""
-        return self.test.level
-
-    @property
-    def tracker(self) -> LevelTracker:
-        """The threshold test's level tracker."""
-        return self.test.tracker
 
     def on_velocity(self, vx: float, vy: float, rate: float, moving: bool
                     ) -> tuple[float, float] | None:
@@ -82,7 +70,7 @@ class WheelSlipCheck(Check):
         g_front = 0.5 * (g_fl + g_fr)
         k_front = slip_ratio(0.5 * r_e * (fl + fr), g_front, st.min_speed)
         k_rear = slip_ratio(0.5 * r_e * (rl + rr), vx, st.min_speed)
-        st.rear_slipping = abs(k_rear) >= self.warn
+        st.rear_slipping = abs(k_rear) >= self.test.warn
         self._front.append(k_front)
         self._rear.append(k_rear)
         return k_front, k_rear
@@ -102,7 +90,7 @@ class WheelSlipCheck(Check):
 
     def peaks(self, kind: str) -> list[tuple[str, float]]:
         """Largest front and rear slip ratios [-] of a wheel-slip or calibration event."""
-        if kind in SLIP_KINDS:
+        if kind in PEAK_KINDS:
             f = self.figures
             return [("slip_ratio_front", f.get("slip_ratio_front [-]", math.nan)),
                     ("slip_ratio_rear", f.get("slip_ratio_rear [-]", math.nan))]

@@ -17,10 +17,8 @@ from kinematic_monitor.core.checks.base import (
     MODEL_TOLERANCE,
     YAW_RATE_TOLERANCE,
     BlockCheck,
-    CusumTest,
-    EventSink,
+    CheckContext,
 )
-from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.samples import ImuSample, LocalizationSample
 
 #: linear-range understeer gradient [rad/(m/s²)] tolerated beyond vehicle.understeer_gradient
@@ -52,30 +50,25 @@ class YawRateCheck(BlockCheck):
     unit = "rad/s"
     peak_kinds = LATERAL_KINDS
 
-    def __init__(self, state: MotionState, test: CusumTest, book: EventSink, period: float,
-                 steer_std: float, wheel_speed_std: float, imu_std: float,
-                 loc_velocity_std: float) -> None:
-        needs = {"joint_states"} | ({"imu"} if state.imu_enabled else set())
-        super().__init__(test, book, period, needs)
-        self.state = state
-        self.steer_std = steer_std
-        self.imu_std = imu_std
-        self.loc_velocity_std = loc_velocity_std
+    def __init__(self, ctx: CheckContext) -> None:
+        super().__init__(ctx, {"joint_states"} | ({"imu"} if ctx.state.imu_enabled else set()))
         # wheel-speed noise as CG speed [m/s] for the mean of the two rear wheels
-        self.speed_std = wheel_speed_std * state.p.effective_wheel_radius / math.sqrt(2.0)
+        self.speed_std = (self.noise.wheel_speed_std * self.state.p.effective_wheel_radius
+                          / math.sqrt(2.0))
         self.allowance = 0.0
 
     def on_imu(self, s: ImuSample) -> None:
         """Residual of an IMU yaw rate (after ``MotionState.apply_imu``)."""
         if self.state.have_chassis():
-            self._add(s.yaw_rate, self.imu_std)
+            self._add(s.yaw_rate, self.noise.imu_yaw_rate_std)
 
     def on_loc(self, s: LocalizationSample) -> None:
         """Residual of the localisation twist's yaw rate, when no IMU is fresh."""
         st = self.state
         if math.isfinite(s.yaw_rate) and st.have_chassis() and not st.imu_fresh():
-            sig = self.loc_velocity_std / max(st.p.track_width, 1.0)
-            self._add(s.yaw_rate, max(sig, self.imu_std))
+            n = self.noise
+            sig = n.localization_velocity_std / max(st.p.track_width, 1.0)
+            self._add(s.yaw_rate, max(sig, n.imu_yaw_rate_std))
 
     def _add(self, meas: float, meas_std: float) -> None:
         st = self.state
@@ -83,8 +76,8 @@ class YawRateCheck(BlockCheck):
         st.kin_rate = kin
         st.meas_rate = meas
         speed, wheelbase = st.speed, st.p.wheelbase
-        noise = yaw_rate_sigma(speed, st.delta, wheelbase, meas_std, self.steer_std,
-                               self.speed_std, kin, 0.0)
+        noise = yaw_rate_sigma(speed, st.delta, wheelbase, meas_std,
+                               self.noise.steering_angle_std, self.speed_std, kin, 0.0)
         ay = abs(st.ay) if math.isfinite(st.ay) else abs(meas * speed)
         allow = (MODEL_TOLERANCE * abs(kin) + YAW_RATE_TOLERANCE + st.lag_allow
                  + abs(speed) / wheelbase * UNDERSTEER_TOLERANCE * ay)

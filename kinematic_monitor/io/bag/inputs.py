@@ -96,7 +96,7 @@ def inputs_from_config(config: MonitorConfig | Mapping[str, Any] | None) -> BagI
     """
     cfg = as_config(config)
     try:
-        scalars = tuple(scalar_settings(cfg.get))
+        scalars = tuple(scalar_settings(cfg))
     except ValueError as exc:
         raise BagError(str(exc)) from None
     roles = {sc.role for sc in scalars}

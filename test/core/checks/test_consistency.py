@@ -19,8 +19,8 @@ def test_time_averaged_bounds_match_check_values() -> None:
 
 
 def test_levels_over_a_full_window() -> None:
-    _, st, _ = setup()
-    chk = FilterConsistencyCheck(st, 50, 1.0)
+    ctx, _, _ = setup()
+    chk = FilterConsistencyCheck(ctx)
     for _ in range(49):
         chk.add(3.0)
     assert chk.level == OK and "collecting" in chk.status_message(OK, True, None, "")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from fixtures.checks import PERIOD, cusum, setup, steady
+from fixtures.checks import setup, steady
 from kinematic_monitor.core import model
 from kinematic_monitor.core.checks.drift import DriftCheck
 from kinematic_monitor.core.checks.sideslip import SideslipCheck
@@ -14,21 +14,15 @@ from kinematic_monitor.core.checks.yaw_rate import YawRateCheck
 def run(lateral_rate: float, seconds: float = 20.0) -> tuple[DriftCheck, list[str]]:
     """A circle at 8 m/s, δ 0.05 rad; the localisation adds ``lateral_rate`` [m/s] of
     sideways drift (body left)."""
-    cfg, st, sink = setup()
-    n, c = cfg.noise, cfg.checks
-    yaw = YawRateCheck(st, cusum(cfg), sink, PERIOD, n.steering_angle_std, n.wheel_speed_std,
-                       n.imu_yaw_rate_std, n.localization_velocity_std)
-    side = SideslipCheck(st, cusum(cfg), sink, PERIOD, n.steering_angle_std,
-                         n.localization_velocity_std)
-    chk = DriftCheck(st, cusum(cfg, 1.0 / c.drift_horizon), sink, yaw, side, c.drift_horizon,
-                     n.steering_angle_std, n.imu_yaw_rate_std)
+    ctx, st, sink = setup()
+    chk = DriftCheck(ctx, YawRateCheck(ctx), SideslipCheck(ctx))
     x = y = heading = 0.0
     off = 0.0
     for i in range(int(seconds * 100)):
         t = 50.0 + i * 0.01
         chk.on_chassis(t)
         steady(st, t, 0.05, 8.0)
-        x, y, heading = model.step(x, y, heading, 8.0, 0.05, 0.01, cfg.vehicle)
+        x, y, heading = model.step(x, y, heading, 8.0, 0.05, 0.01, ctx.config.vehicle)
         off += lateral_rate * 0.01
         if i % 2 == 1:
             pose = (x - off * math.sin(heading), y + off * math.cos(heading), heading)

@@ -17,8 +17,8 @@ def test_envelope_is_half_mu_g() -> None:
 
 
 def test_warn_outside_the_envelope_after_min_duration() -> None:
-    cfg, st, _ = setup(checks__friction_assumed=0.5)
-    chk = GripCheck(st, 0.5, cfg.checks.min_duration, cfg.checks.clear_duration)
+    ctx, st, _ = setup(checks__friction_assumed=0.5)
+    chk = GripCheck(ctx)
     for i in range(10):
         st.ay = 2.0  # inside 0.25 g
         chk.decide(i * 0.1)

@@ -4,17 +4,16 @@ from __future__ import annotations
 
 import numpy as np
 
-from fixtures.checks import PERIOD, cusum, setup, steady
+from fixtures.checks import PERIOD, setup, steady
 from kinematic_monitor.core.checks.heading import HeadingCheck
 from kinematic_monitor.core.samples import ImuSample
 
 
 def run(offset: float, drift_rate: float, seconds: float = 30.0) -> list[str]:
     """A 0.1 rad/s turn; the localisation yaw carries ``offset`` + ``drift_rate``·t."""
-    cfg, st, sink = setup()
-    n, c = cfg.noise, cfg.checks
-    chk = HeadingCheck(st, cusum(cfg), sink, PERIOD, c.heading_time_constant,
-                       c.heading_tolerance, n.imu_yaw_rate_std)
+    ctx, st, sink = setup()
+    n = ctx.noise
+    chk = HeadingCheck(ctx)
     rng = np.random.default_rng(2)
     nxt = PERIOD
     for i in range(int(seconds * 100)):

@@ -10,8 +10,8 @@ from kinematic_monitor.core.levels import ERROR, OK, STALE, WARN
 
 
 def test_silent_imu_is_stale_with_a_warn_event_and_recovers() -> None:
-    cfg, st, sink = setup()
-    chk = InputCheck(st, sink, "imu")
+    ctx, st, sink = setup()
+    chk = InputCheck(ctx, "imu")
     st.last_seen["imu"] = 10.0
     chk.decide(10.4, 10.0)
     assert chk.level == OK and not chk.stale
@@ -25,8 +25,8 @@ def test_silent_imu_is_stale_with_a_warn_event_and_recovers() -> None:
 
 
 def test_joint_states_never_seen_counts_from_the_first_sample() -> None:
-    cfg, st, sink = setup()
-    chk = InputCheck(st, sink, "joint_states")
+    ctx, st, sink = setup()
+    chk = InputCheck(ctx, "joint_states")
     chk.decide(5.7, 5.0)
     assert chk.tracker.level == ERROR and math.isclose(chk.figures["age [s]"], 0.7)
     assert chk.status_message(STALE, True, None, "").startswith("no joint_states")

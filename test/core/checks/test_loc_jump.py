@@ -22,13 +22,9 @@ def test_bounds_are_chi_square_quantiles_for_the_hourly_rates() -> None:
 def drive(jump_at: float | None, sigma_after: float = 0.05, steps: int = 200) -> tuple[
         LocalizationJumpCheck, list[str], dict[str, int], list[tuple[float, str]]]:
     """10 m/s straight along x; localisation at 50 Hz; a 1 m sideways jump at ``jump_at``."""
-    cfg, st, sink = setup()
-    counters = {"relocalizations": 0, "notes": 0}
-    notes: list[tuple[float, str]] = []
-    n = cfg.noise
-    chk = LocalizationJumpCheck(st, sink, notes, counters, 1.0, 0.001,
-                                cfg.checks.clear_duration, n.wheel_speed_std,
-                                n.localization_velocity_std, n.imu_yaw_rate_std)
+    ctx, st, sink = setup()
+    counters, notes = ctx.counters, ctx.notes
+    chk = LocalizationJumpCheck(ctx)
     for i in range(steps):
         t = 100.0 + i * 0.02
         steady(st, t, 0.0, 10.0)

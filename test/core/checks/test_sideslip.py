@@ -8,18 +8,17 @@ import math
 import numpy as np
 import pytest
 
-from fixtures.checks import PERIOD, cusum, setup, steady
+from fixtures.checks import PERIOD, setup, steady
 from kinematic_monitor.core.checks.sideslip import SideslipCheck
 
 BETA = 0.057271  # rad
 
 
 def run(beta_true: float, seconds: float = 10.0) -> tuple[SideslipCheck, list[str]]:
-    cfg, st, sink = setup()
-    chk = SideslipCheck(st, cusum(cfg), sink, PERIOD, cfg.noise.steering_angle_std,
-                        cfg.noise.localization_velocity_std)
+    ctx, st, sink = setup()
+    chk = SideslipCheck(ctx)
     rng = np.random.default_rng(5)
-    sv = cfg.noise.localization_velocity_std
+    sv = ctx.noise.localization_velocity_std
     t, next_decision = 10.0, 10.1
     for _ in range(int(seconds * 50)):
         t += 0.02
@@ -49,8 +48,8 @@ def test_sliding_body_raises() -> None:
 
 def test_measured_sideslip_reversing_keeps_rep103_sign() -> None:
     # reversing straight back with a leftward drift: atan2 of the negated velocity
-    cfg, st, sink = setup()
-    chk = SideslipCheck(st, cusum(cfg), sink, PERIOD, 0.002, 0.05)
+    ctx, st, _ = setup()
+    chk = SideslipCheck(ctx)
     steady(st, 1.0, 0.0, -5.0)
     chk.on_velocity(-5.0, 0.0, 0.0, True)
     assert chk.figures["sideslip_measured [rad]"] == pytest.approx(0.0)

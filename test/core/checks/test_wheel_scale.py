@@ -2,15 +2,14 @@
 
 from __future__ import annotations
 
-from fixtures.checks import PERIOD, cusum, setup, steady
+from fixtures.checks import PERIOD, setup, steady
 from kinematic_monitor.core.checks.wheel_scale import WheelScaleCheck
 from kinematic_monitor.core.samples import ImuSample
 
 
 def run(k_front: float, k_rear: float, ax: float = 0.0) -> list[str]:
-    cfg, st, sink = setup()
-    chk = WheelScaleCheck(st, cusum(cfg), sink, PERIOD, cfg.noise.wheel_speed_std,
-                          cfg.noise.localization_velocity_std)
+    ctx, st, sink = setup()
+    chk = WheelScaleCheck(ctx)
     t, nxt = 0.0, PERIOD
     for _ in range(500):
         t += 0.02

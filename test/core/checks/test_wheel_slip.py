@@ -20,11 +20,9 @@ def test_slip_ratio_signs_and_guard() -> None:
 
 
 def run(rear_factor: float, front_factor: float = 1.0) -> tuple[WheelSlipCheck, list[str]]:
-    cfg, st, sink = setup()
-    c = cfg.checks
-    chk = WheelSlipCheck(st, sink, PERIOD, c.slip_ratio_warn, c.slip_ratio_error,
-                         c.min_duration, c.clear_duration)
-    r = cfg.vehicle.effective_wheel_radius
+    ctx, st, sink = setup()
+    chk = WheelSlipCheck(ctx)
+    r = ctx.config.vehicle.effective_wheel_radius
     w = 10.0 / r  # straight ahead at 10 m/s: every wheel rolls at v / R_e
     st.wheels = (front_factor * w, front_factor * w, rear_factor * w, rear_factor * w)
     t, nxt = 0.0, PERIOD

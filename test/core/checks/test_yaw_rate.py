@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from fixtures.checks import PERIOD, cusum, setup, steady
+from fixtures.checks import PERIOD, setup, steady
 from kinematic_monitor.core.checks.yaw_rate import YawRateCheck, yaw_rate_sigma
 from kinematic_monitor.core.samples import ImuSample
 
@@ -18,10 +18,8 @@ RATE = 0.357751  # rad/s, Rajamani table row (10 m/s, 0.1 rad, l_f 1.2, l_r 1.6)
 
 
 def run(factor: float, seconds: float = 20.0, seed: int = 3) -> tuple[YawRateCheck, list[str]]:
-    cfg, st, sink = setup()
-    chk = YawRateCheck(st, cusum(cfg), sink, PERIOD, cfg.noise.steering_angle_std,
-                       cfg.noise.wheel_speed_std, cfg.noise.imu_yaw_rate_std,
-                       cfg.noise.localization_velocity_std)
+    ctx, st, sink = setup()
+    chk = YawRateCheck(ctx)
     rng = np.random.default_rng(seed)
     t, next_decision = 100.0, 100.1
     for _ in range(int(seconds * 100)):
@@ -30,7 +28,7 @@ def run(factor: float, seconds: float = 20.0, seed: int = 3) -> tuple[YawRateChe
             chk.decide(next_decision, 10, st.moving())
             next_decision += PERIOD
         steady(st, t, 0.1, 10.0)
-        rate = factor * RATE + rng.normal(0.0, cfg.noise.imu_yaw_rate_std)
+        rate = factor * RATE + rng.normal(0.0, ctx.noise.imu_yaw_rate_std)
         s = ImuSample(t, rate, ay=10.0 * rate)
         st.apply_imu(s)
         chk.on_imu(s)
