@@ -144,6 +144,14 @@ def _innovation(residual: np.ndarray, covariance: np.ndarray, nis: float, dof: i
     return inn
 
 
+def _symmetric_psd_entries(a: float, b: float, c: float, d: float, e: float, f: float,
+                           g: float, h: float, i: float) -> bool:
+    """True for an exactly symmetric [[a, b, c], [d, e, f], [g, h, i]] with finite entries
+    and a non-negative diagonal (the fast-path test of :func:`_cov3`)."""
+    return (b == d and c == g and f == h and 0.0 <= a < _INF and 0.0 <= e < _INF
+            and 0.0 <= i < _INF and -_INF < b < _INF and -_INF < c < _INF and -_INF < f < _INF)
+
+
 def _cov3(name: str, cov: object) -> tuple[float, float, float, float, float, float]:
     """Unique entries (r00, r01, r02, r11, r12, r22) of a validated 3x3 covariance.
 
@@ -158,37 +166,15 @@ def _cov3(name: str, cov: object) -> tuple[float, float, float, float, float, fl
         rows: Any = cov
         if len(rows) == 3 and all(type(r) in (list, tuple) and len(r) == 3 for r in rows):
             (a, b, c), (d, e, f), (g, h, i) = rows
-            if (
-                all(type(v) is float for v in (a, b, c, d, e, f, g, h, i))
-                and b == d
-                and c == g
-                and f == h
-                and 0.0 <= a < _INF
-                and 0.0 <= e < _INF
-                and 0.0 <= i < _INF
-                and -_INF < b < _INF
-                and -_INF < c < _INF
-                and -_INF < f < _INF
-            ):
+            if all(type(v) is float for v in (a, b, c, d, e, f, g, h, i)) and (
+                    _symmetric_psd_entries(a, b, c, d, e, f, g, h, i)):
                 return a, b, c, e, f, i
     elif t is np.ndarray:
         arr: Any = cov
-        if arr.dtype is not _F64 or arr.shape != (3, 3):
-            a, b, c, _, e, f, _, _, i = _cov_flat(name, cov, 3)
-            return a, b, c, e, f, i
-        a, b, c, d, e, f, g, h, i = arr.ravel().tolist()
-        if (
-            b == d
-            and c == g
-            and f == h
-            and 0.0 <= a < _INF
-            and 0.0 <= e < _INF
-            and 0.0 <= i < _INF
-            and -_INF < b < _INF
-            and -_INF < c < _INF
-            and -_INF < f < _INF
-        ):
-            return a, b, c, e, f, i
+        if arr.dtype is _F64 and arr.shape == (3, 3):
+            a, b, c, d, e, f, g, h, i = arr.ravel().tolist()
+            if _symmetric_psd_entries(a, b, c, d, e, f, g, h, i):
+                return a, b, c, e, f, i
     a, b, c, _, e, f, _, _, i = _cov_flat(name, cov, 3)
     return a, b, c, e, f, i
 
@@ -266,7 +252,9 @@ class BicycleEKF:
         self.noise = noise if noise is not None else FilterNoise()
         self.reference_x = float(reference_x)
         # state (x, y, yaw, v, bias) and covariance upper triangle (15 entries)
-        self._xs: tuple[float, float, float, float, float] = (0.0, 0.0, 0.0, 0.0, 0.0)
+        # the state: CG x, y [m], heading [rad] in [-pi, pi), CG speed [m/s], residual
+        # steering offset [rad] (added to the measured angle); read them, do not set them
+        self.x = self.y = self.yaw = self.v = self.steering_bias = 0.0
         self._p: tuple[float, ...] = tuple(np.eye(N_STATE)[np.triu_indices(N_STATE)].tolist())
         self._stamp = math.nan
         self._delta_meas = 0.0
@@ -287,7 +275,7 @@ class BicycleEKF:
     @property
     def state(self) -> np.ndarray:
         """Copy of the state vector [x, y, yaw, v, bias]."""
-        return np.array(self._xs)
+        return np.array(self._state())
 
     @property
     def covariance(self) -> np.ndarray:
@@ -301,30 +289,8 @@ class BicycleEKF:
         p00, p01, p02, _, _, p11, p12, _, _, p22 = self._p[:10]
         return (p00, p01, p02, p01, p11, p12, p02, p12, p22)
 
-    @property
-    def x(self) -> float:
-        """CG x [m]."""
-        return self._xs[IX]
-
-    @property
-    def y(self) -> float:
-        """CG y [m]."""
-        return self._xs[IY]
-
-    @property
-    def yaw(self) -> float:
-        """Heading [rad] in [-pi, pi)."""
-        return self._xs[IYAW]
-
-    @property
-    def v(self) -> float:
-        """CG speed [m/s]."""
-        return self._xs[IV]
-
-    @property
-    def steering_bias(self) -> float:
-        """Estimated residual steering offset [rad] (added to the measured angle)."""
-        return self._xs[IBIAS]
+    def _state(self) -> tuple[float, float, float, float, float]:
+        return self.x, self.y, self.yaw, self.v, self.steering_bias
 
     @property
     def last_steer(self) -> float:
@@ -334,7 +300,7 @@ class BicycleEKF:
     def steer(self, delta_measured: float | None = None) -> float:
         """True road-wheel angle [rad] = measured + params offset + estimated bias."""
         d = self._delta_meas if delta_measured is None else delta_measured
-        return d + self.params.steering_offset + self._xs[IBIAS]
+        return d + self.params.steering_offset + self.steering_bias
 
     # --- life cycle --------------------------------------------------------------------
 
@@ -362,7 +328,7 @@ class BicycleEKF:
         _check_finite(stamp=stamp, x=x, y=y, yaw=yaw, v=v, bias=bias)
         c, s = math.cos(yaw), math.sin(yaw)
         d = self.reference_x
-        self._xs = (
+        self.x, self.y, self.yaw, self.v, self.steering_bias = (
             float(x - d * c),
             float(y - d * s),
             wrap_angle(float(yaw)),
@@ -398,7 +364,7 @@ class BicycleEKF:
         dt [s], delta: measured road-wheel angle [rad], speed: CG speed input [m/s].
         Evaluated at the current state (before the prediction). Does not change the filter.
         """
-        x, y, yaw, _, bias = self._xs
+        x, y, yaw, bias = self.x, self.y, self.yaw, self.steering_bias
         d_true = delta + self.params.steering_offset + bias
         _, (dx_dyaw, dy_dyaw, dx_dv, dy_dv, dyaw_dv, dx_dd, dy_dd, dyaw_dd) = step_with_partials(
             x, y, yaw, speed, d_true, dt, self.params
@@ -442,7 +408,7 @@ class BicycleEKF:
         delta = float(delta)
         if dt > 0.0:
             speed = float(speed)
-            x, y, yaw, _, bias = self._xs
+            x, y, yaw, bias = self.x, self.y, self.yaw, self.steering_bias
             (x, y, yaw), (fa, fb, xv, yv, wv, fc, fd, fe) = step_with_partials(
                 x, y, yaw, speed, delta + params.steering_offset + bias, dt, params
             )
@@ -453,7 +419,7 @@ class BicycleEKF:
             qw = n.yaw_rw * dt
             qb = n.bias_rw * dt
             self._p = _propagate(self._p, fa, fb, fc, fd, fe, xv, yv, wv, vs, vd, qp, qw, qb)
-            self._xs = (x, y, yaw, speed, bias)
+            self.x, self.y, self.yaw, self.v = x, y, yaw, speed
             self._stamp = float(stamp)
         self._delta_meas = delta
 
@@ -492,7 +458,7 @@ class BicycleEKF:
                      r02: float, r11: float, r12: float, r22: float) -> tuple[float, ...]:
         """The pose update of validated inputs: (e0, e1, e2, s00, s01, s02, s11, s12, s22,
         nis) (innovation, unique entries of its covariance, NIS)."""
-        sx, sy, syaw, sv, sb = self._xs
+        sx, sy, syaw, sv, sb = self._state()
         d = self.reference_x
         c, s = _cos(syaw), _sin(syaw)
         # H = [[1, 0, ha, 0, 0], [0, 1, hb, 0, 0], [0, 0, 1, 0, 0]]
@@ -515,7 +481,7 @@ class BicycleEKF:
         k = _pose_gain(m, (p[2], p[6], p[9], p[10], p[11]), inv)
         self._p = _joseph_pose(self._p, k, ha, hb, (r00, r01, r02, r11, r12, r22))
         k00, k01, k02, k10, k11, k12, k20, k21, k22, k30, k31, k32, k40, k41, k42 = k
-        self._xs = (
+        self.x, self.y, self.yaw, self.v, self.steering_bias = (
             sx + k00 * e0 + k01 * e1 + k02 * e2,
             sy + k10 * e0 + k11 * e1 + k12 * e2,
             (syaw + k20 * e0 + k21 * e1 + k22 * e2 + _PI) % _TWO_PI - _PI,

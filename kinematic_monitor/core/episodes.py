@@ -10,8 +10,9 @@ which they have for which kinds) and records every start and end as a transition
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Protocol
 
 from kinematic_monitor.core.checks.base import Check
 from kinematic_monitor.core.events import Event, Transition
@@ -28,34 +29,36 @@ class _Slot:
     channels: set[str] = field(default_factory=set)
 
 
+class BookOwner(Protocol):
+    """What the event book asks of the monitor that owns it."""
+
+    events: list[Event]
+    notes: list[tuple[float, str]]
+    counters: dict[str, int]
+
+    def evidence(self, channel: str, extra: dict[str, float] | None) -> Evidence:
+        """The triage evidence of an alarm on ``channel`` now."""
+
+    def position(self) -> tuple[float, float]:
+        """The vehicle's [x, y] [m] in the localisation frame (NaN: unknown)."""
+
+    def first_and_now(self) -> tuple[float, float]:
+        """The first and the latest stamp [s] (no event starts before the first)."""
+
+    def common_peaks(self) -> list[tuple[str, float]]:
+        """Figures every event keeps the largest of, after the checks' own."""
+
+
 class EventBook:
-    """Open events by kind; see the module docstring.
+    """Open events by kind; see the module docstring. Checks are attached with
+    :meth:`attach`; ``owner`` is the monitor (events, notes and counters outlive a time
+    reset, the book does not); ``transitions`` collects the starts and ends."""
 
-    Checks are attached with :meth:`attach`. ``evidence(channel,
-    extra)`` builds the triage evidence; ``position()`` the vehicle's [x, y] [m]; ``now()``
-    the latest stamp [s]; ``first()`` the first stamp [s] (no event starts before it);
-    ``common_peaks()`` figures every event keeps the largest of (after
-    the checks' own). ``events``, ``transitions``, ``notes`` and ``counters`` are the
-    monitor's (they outlive a time reset, the book does not).
-    """
-
-    def __init__(self,
-                 evidence: Callable[[str, dict[str, float] | None], Evidence],
-                 position: Callable[[], tuple[float, float]], now: Callable[[], float],
-                 first: Callable[[], float], common_peaks: Callable[[], list[tuple[str, float]]],
-                 events: list[Event], transitions: list[Transition],
-                 notes: list[tuple[float, str]], counters: dict[str, int]) -> None:
+    def __init__(self, owner: BookOwner, transitions: list[Transition]) -> None:
+        self.owner = owner
+        self.transitions = transitions
         self.checks: dict[str, Check] = {}
         self._peak_order: list[Check] = []
-        self._evidence = evidence
-        self._position = position
-        self._now = now
-        self._first = first
-        self._common_peaks = common_peaks
-        self.events = events
-        self.transitions = transitions
-        self.notes = notes
-        self.counters = counters
         self._slots: dict[str, _Slot] = {}  # kind -> open event
         self._channel_kind: dict[str, str] = {}
 
@@ -93,14 +96,14 @@ class EventBook:
 
     def _start(self, channel: str, t: float, extra: dict[str, float] | None, start: float,
                level: int) -> None:
-        verdict = classify(self._evidence(channel, extra))
+        verdict = classify(self.owner.evidence(channel, extra))
         if channel == SLOW_CHANNEL and "localization_fault" in self._slots:
             # drift compares dead reckoning with the localisation: while a localisation
             # fault is open, a drift alarm is that fault's consequence
             verdict = Verdict("localization_fault", "drift", verdict.summary)
         if verdict.note:
-            self.counters["notes"] += 1
-            self.notes.append((t, verdict.summary))
+            self.owner.counters["notes"] += 1
+            self.owner.notes.append((t, verdict.summary))
             return
         kind = verdict.kind
         slot = self._slots.get(kind)
@@ -108,14 +111,14 @@ class EventBook:
             return  # the slow channel corroborates but never prolongs an open episode
         self._channel_kind[channel] = kind
         if slot is None:
-            first = self._first()
+            first = self.owner.first_and_now()[0]
             if math.isfinite(first) and start < first:
                 start = first  # an onset estimate before the data began: the data's start
             ev = Event(start=start, detected_at=t, kind=kind, level=max(WARN, min(ERROR, level)),
-                       position=self._position(), summary=verdict.summary)
+                       position=self.owner.position(), summary=verdict.summary)
             slot = _Slot(ev, {channel})
             self._slots[kind] = slot
-            self.events.append(ev)
+            self.owner.events.append(ev)
             self._update_peak(slot)
             self.transitions.append(Transition("start", ev))
         else:
@@ -133,7 +136,7 @@ class EventBook:
         slot.channels.discard(channel)
         if not slot.channels:
             ev = slot.event
-            ev.end = max(end if math.isfinite(end) else self._now(), ev.start)
+            ev.end = max(end if math.isfinite(end) else self.owner.first_and_now()[1], ev.start)
             del self._slots[kind]
             self.transitions.append(Transition("end", ev))
 
@@ -146,10 +149,11 @@ class EventBook:
         ev = slot.event
         figures: list[tuple[str, float]] = []
         for check in self._peak_order:
-            if ev.kind in check.peak_kinds and not (
-                    check.peaks_own_events_only and check.name not in slot.channels):
+            info = check.info
+            if ev.kind in info.peak_kinds and not (
+                    info.own_events_only and info.name not in slot.channels):
                 figures += check.peaks(ev.kind)
-        figures += self._common_peaks()
+        figures += self.owner.common_peaks()
         peak = ev.peak
         for name, value in figures:
             if math.isfinite(value) and (name not in peak or abs(value) > abs(peak[name])):

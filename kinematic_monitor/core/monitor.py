@@ -97,9 +97,7 @@ class Monitor:
         self._first_stamp = math.nan
         self._clock_t = -math.inf  # latest external clock time given to check_stale [s]
         self._active = False
-        self.book = EventBook(self._evidence, self._position, lambda: self.state.now,
-                              lambda: self._first_stamp, self._common_peaks, self.events,
-                              self._transitions, self.notes, self.counters)
+        self.book = EventBook(self, self._transitions)
         self.checks: CheckSet = build_checks(CheckContext(st, self.book, DECISION_PERIOD, cfg,
                                                           self.notes, self.counters))
         self.book.attach(self.checks.statuses_order, self.checks.peaks_order)
@@ -255,7 +253,8 @@ class Monitor:
         self._check_inputs(now)
 
     # ------------------------------------------------------------------ events
-    def _evidence(self, channel: str, extra: dict[str, float] | None) -> Evidence:
+    def evidence(self, channel: str, extra: dict[str, float] | None) -> Evidence:
+        """The triage evidence of an alarm on ``channel`` now (the event book asks)."""
         st, p, n = self.state, self.p, self.config.noise
         slips = self.checks.wheel_slip.figures
         ev = Evidence(
@@ -278,11 +277,17 @@ class Monitor:
             setattr(ev, k, v)
         return ev
 
-    def _position(self) -> tuple[float, float]:
+    def position(self) -> tuple[float, float]:
+        """The latest localised [x, y] [m] (NaN before any)."""
         loc = self.state.loc
         return (loc.x, loc.y) if loc is not None else (math.nan, math.nan)
 
-    def _common_peaks(self) -> list[tuple[str, float]]:
+    def first_and_now(self) -> tuple[float, float]:
+        """The first and the latest stamp [s]."""
+        return self._first_stamp, self.state.now
+
+    def common_peaks(self) -> list[tuple[str, float]]:
+        """The speed [m/s], kept for every event."""
         speed = self.state.speed
         return [("speed_m_s", speed if _isfinite(speed) else math.nan)]
 

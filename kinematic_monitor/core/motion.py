@@ -11,7 +11,7 @@ body x forward / y left (REP 103); positions in the localisation frame (REP 105)
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, NamedTuple
 
 from kinematic_monitor.core import model
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
@@ -30,22 +30,18 @@ _isfinite = math.isfinite
 _NAN = math.nan
 
 
-class ChassisInputs:
-    """A chassis sample turned into the monitor's inputs (see :meth:`MotionState.read_chassis`)."""
+class ChassisInputs(NamedTuple):
+    """A chassis sample turned into the monitor's inputs (see :meth:`MotionState.read_chassis`):
+    corrected and measured bicycle angle [rad], CG speed [m/s], wheel speeds (FL, FR, RL, RR)
+    [rad/s], which of steering and speed the sample carried, and its left/right angles [rad]."""
 
-    __slots__ = ("delta", "delta_meas", "speed", "wheels", "got_steer", "got_speed",
-                 "steer_pair")
-
-    def __init__(self, delta: float, delta_meas: float, speed: float,
-                 wheels: tuple[float, float, float, float], got_steer: bool, got_speed: bool,
-                 steer_pair: tuple[float, float]) -> None:
-        self.delta = delta
-        self.delta_meas = delta_meas
-        self.speed = speed
-        self.wheels = wheels
-        self.got_steer = got_steer
-        self.got_speed = got_speed
-        self.steer_pair = steer_pair
+    delta: float
+    delta_meas: float
+    speed: float
+    wheels: tuple[float, float, float, float]
+    got_steer: bool
+    got_speed: bool
+    steer_pair: tuple[float, float]
 
 
 class MotionState:
@@ -61,44 +57,34 @@ class MotionState:
     def __init__(self, config: MonitorConfig, counters: dict[str, int]) -> None:
         self.p = config.vehicle
         self.counters = counters
-        self.min_speed = float(config.checks.min_speed)
-        self.yaw_lag = float(config.checks.yaw_lag)
-        self.imu_enabled = bool(config.inputs.imu.enabled)
-        self.ref_x = float(config.inputs.localization.reference_x)
-        t = config.timeouts
-        self.timeouts = {"joint_states": float(t.joint_states),
-                         "localization": float(t.localization), "imu": float(t.imu)}
-        n = config.noise
-        self.position_std = float(n.localization_position_std)
-        self.yaw_std = float(n.localization_yaw_std)
+        c, t, n = config.checks, config.timeouts, config.noise
+        self.min_speed, self.yaw_lag = c.min_speed, c.yaw_lag
+        self.imu_enabled = config.inputs.imu.enabled
+        self.ref_x = config.inputs.localization.reference_x
+        self.timeouts = {"joint_states": t.joint_states, "localization": t.localization,
+                         "imu": t.imu}
+        self.position_std, self.yaw_std = n.localization_position_std, n.localization_yaw_std
         self.now = -math.inf
         self.last_seen: dict[str, float] = {k: _NAN for k in INPUTS}
-        self.delta = _NAN
-        self.delta_meas = _NAN
-        # stamps of the latest steering and speed [s]: a sample carrying only one of them
-        # (separate steering and speed topics) reuses the other while it is fresh
-        self.steer_t = _NAN
-        self.speed_t = _NAN
-        self.speed = _NAN
+        # chassis: angles, CG speed and the stamps of the latest steering and speed [s] (a
+        # sample carrying only one of them reuses the other while it is fresh)
+        self.delta = self.delta_meas = self.speed = self.steer_t = self.speed_t = _NAN
         self.wheels: tuple[float, float, float, float] | None = None
         self.steer_pair: tuple[float, float] = (_NAN, _NAN)
         self.n_chassis_block = 0  # complete chassis samples in the current decision block
         self.imu: ImuSample | None = None
-        self.yaw_rate_imu = _NAN
-        self.ay = _NAN
+        self.yaw_rate_imu = self.ay = self.yaw_rate_loc = self.kin_rate = self.meas_rate = _NAN
         self.loc: LocalizationSample | None = None
         # previous localisation: t, x, y, yaw (CG), position std, vx, vy (CG, body frame)
         self.loc_prev: tuple[float, float, float, float, float, float, float] | None = None
-        self.yaw_rate_loc = _NAN
         self.ground = (_NAN, _NAN)  # (stamp, localisation CG speed [m/s])
         self.loc_rate_guess = 50.0  # Hz; refined from the data
-        self.kin_rate = _NAN
-        self.meas_rate = _NAN
         self.rear_slipping = False  # rear wheels' slip ratio beyond checks.slip_ratio_warn
-        self._curv_delta = _NAN  # steering angle [rad] of the kept curvature [1/m]
-        self._curv = _NAN
-        self._kin_ref = (_NAN, _NAN)  # (stamp, kinematic yaw rate) for the lag slope
-        self.lag_allow = 0.0  # transient yaw-rate allowance [rad/s]
+        # the curvature [1/m] kept for one steering angle [rad]; (stamp, kinematic yaw
+        # rate) for the lag slope; the transient yaw-rate allowance [rad/s]
+        self._curv_delta = self._curv = _NAN
+        self._kin_ref = (_NAN, _NAN)
+        self.lag_allow = 0.0
 
     # ------------------------------------------------------------------ queries
     def have_chassis(self) -> bool:

@@ -42,7 +42,10 @@ import math
 from collections import deque
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
-from typing import Any, Protocol
+from typing import TYPE_CHECKING, Any, Protocol
+
+if TYPE_CHECKING:  # pragma: no cover - typing only
+    from kinematic_monitor.config.validation import MonitorConfig
 
 GAP_WINDOW = 32  # stamp gaps per stream kept for the look-ahead
 MIN_GAPS = 8  # gaps needed before a stream gets a look-ahead
@@ -57,40 +60,6 @@ class _Stamped(Protocol):
 #: stream names of the configured inputs (single-value inputs are named by their roles,
 #: e.g. ``steering+speed``)
 INPUT_STREAMS = ("joint_states", "localization", "imu")
-
-
-class _Topic(Protocol):
-    @property
-    def topic(self) -> str: ...
-
-
-class _Inputs(Protocol):
-    @property
-    def reorder_window(self) -> float: ...
-    @property
-    def joint_states(self) -> _Topic: ...
-    @property
-    def localization(self) -> _Topic: ...
-    @property
-    def imu(self) -> _Topic: ...
-
-
-class _Timeouts(Protocol):
-    @property
-    def joint_states(self) -> float: ...
-    @property
-    def localization(self) -> float: ...
-    @property
-    def imu(self) -> float: ...
-
-
-class InputConfig(Protocol):
-    """What :func:`input_buffer` reads of the configuration (``MonitorConfig``)."""
-
-    @property
-    def inputs(self) -> _Inputs: ...
-    @property
-    def timeouts(self) -> _Timeouts: ...
 
 
 @dataclass(frozen=True)
@@ -286,7 +255,7 @@ class ReorderBuffer:
         return out
 
 
-def input_buffer(cfg: InputConfig) -> ReorderBuffer:
+def input_buffer(cfg: MonitorConfig) -> ReorderBuffer:
     """The reorder buffer of the monitor's inputs, as configured (node and replay alike).
 
     Lag ``inputs.reorder_window`` [s]; a backwards jump of more than max(1 s, 2 lag + 0.5 s)

@@ -22,7 +22,7 @@ from kinematic_monitor.core.motion import MotionState
 from kinematic_monitor.core.stats import Cusum, arl_for_rate, cusum_threshold
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
-    from kinematic_monitor.config.validation import ChecksConfig, MonitorConfig, NoiseConfig
+    from kinematic_monitor.config.validation import MonitorConfig
     from kinematic_monitor.core.triage import Evidence
 
 PREFIX = "kinematic_monitor: "
@@ -298,66 +298,70 @@ class CheckContext:
     notes: list[tuple[float, str]] = field(default_factory=list)
     counters: dict[str, int] = field(default_factory=dict)
 
-    @property
-    def noise(self) -> NoiseConfig:
-        """``noise.*``: the configured sensor noise."""
-        return self.config.noise
-
-    @property
-    def checks(self) -> ChecksConfig:
-        """``checks.*``: thresholds and timing."""
-        return self.config.checks
-
     def error_rate(self) -> float:
         """False ERROR alarms per hour allowed [1/h]: checks.false_alarm_rate · (1 −
         checks.error_confidence)."""
-        c = self.checks
+        c = self.config.checks
         return c.false_alarm_rate * (1.0 - c.error_confidence)
 
     def cusum(self, decisions_per_second: float | None = None) -> CusumTest:
         """A CUSUM test taking ``decisions_per_second`` values (default: one per decision
         period) with the configured false-alarm rates and durations."""
+        c = self.config.checks
         rate = decisions_per_second if decisions_per_second else 1.0 / self.period
-        k, h_warn, h_error = cusum_thresholds(self.checks.false_alarm_rate, self.error_rate(),
-                                              rate)
-        return CusumTest(k, h_warn, h_error, self.checks.min_duration,
-                         self.checks.clear_duration)
+        k, h_warn, h_error = cusum_thresholds(c.false_alarm_rate, self.error_rate(), rate)
+        return CusumTest(k, h_warn, h_error, c.min_duration, c.clear_duration)
+
+
+@dataclass(frozen=True)
+class CheckInfo:
+    """Who a check is: ``name``, its id and triage channel ('yaw_rate'); ``label``, its status
+    name after ``kinematic_monitor: `` and, with underscores, its time-series name; ``unit``
+    of its residual; ``peak_kinds``, the event kinds that keep its peak figures
+    (:meth:`Check.peaks`); ``own_events_only``: only while it holds the event open itself."""
+
+    name: str
+    label: str
+    unit: str = "-"
+    peak_kinds: tuple[str, ...] = ()
+    own_events_only: bool = False
 
 
 class Check:
-    """Base of every check.
+    """Base of every check: its :class:`CheckInfo` (``info``), ``needs``, the inputs it
+    needs (a stale one makes its status STALE), ``figures``, its current key-values (unit in
+    the key), and ``test``, the statistical test whose tracker gives its level."""
 
-    ``name``: the check's id and its triage channel ('yaw_rate'); ``label``: its status
-    name after ``kinematic_monitor: `` and, with underscores, its time-series name;
-    ``needs``: the inputs it needs (a stale one makes its status STALE); ``figures``: its
-    current key-values (unit in the key). Subclasses give ``level`` and, when they can
-    open events, ``tracker``.
-    """
-
-    name: ClassVar[str] = ""
-    label: ClassVar[str] = ""
-    #: peak figures (:meth:`peaks`) are kept for events of these kinds
-    peak_kinds: ClassVar[tuple[str, ...]] = ()
-    #: ... and only while the check itself holds the event open
-    peaks_own_events_only: ClassVar[bool] = False
+    info: ClassVar[CheckInfo] = CheckInfo("", "")
+    test: CusumTest | ThresholdTest
 
     def __init__(self, ctx: CheckContext, needs: Iterable[str] = ()) -> None:
         self.ctx = ctx
         self.state = ctx.state
         self.book = ctx.book
-        self.noise = ctx.noise
+        self.noise = ctx.config.noise
         self.needs = frozenset(needs)
         self.figures: dict[str, float] = {}
 
     @property
+    def name(self) -> str:
+        """The check's id and triage channel."""
+        return self.info.name
+
+    @property
+    def label(self) -> str:
+        """Its status and time-series name."""
+        return self.info.label
+
+    @property
     def level(self) -> int:
         """Current level (REP 107 OK/WARN/ERROR) before the stale-input rule."""
-        raise NotImplementedError
+        return self.test.tracker.level
 
     @property
     def tracker(self) -> LevelTracker:
         """The level tracker whose start/end times an event takes."""
-        raise NotImplementedError(f"check {self.name!r} opens no events")
+        return self.test.tracker
 
     def status_figures(self) -> dict[str, float]:
         """Key-values for ``/diagnostics`` and the time series (figures, then the test's)."""
@@ -382,39 +386,23 @@ class Check:
 class ThresholdCheck(Check):
     """A check whose test is a :class:`ThresholdTest` on a magnitude."""
 
+    test: ThresholdTest
+
     def __init__(self, ctx: CheckContext, test: ThresholdTest, needs: Iterable[str] = ()
                  ) -> None:
         super().__init__(ctx, needs)
         self.test = test
 
-    @property
-    def level(self) -> int:
-        """Current level (OK/WARN/ERROR)."""
-        return self.test.level
-
-    @property
-    def tracker(self) -> LevelTracker:
-        """The threshold test's level tracker."""
-        return self.test.tracker
-
 
 class CusumCheck(Check):
     """A check whose test is a :class:`CusumTest` on standardised residuals."""
+
+    test: CusumTest
 
     def __init__(self, ctx: CheckContext, needs: Iterable[str] = (),
                  test: CusumTest | None = None) -> None:
         super().__init__(ctx, needs)
         self.test = test if test is not None else ctx.cusum()
-
-    @property
-    def level(self) -> int:
-        """Current level (OK/WARN/ERROR)."""
-        return self.test.tracker.level
-
-    @property
-    def tracker(self) -> LevelTracker:
-        """The CUSUM's level tracker."""
-        return self.test.tracker
 
     def status_figures(self) -> dict[str, float]:
         """Figures, then the CUSUM statistic and its thresholds [σ]."""
@@ -432,9 +420,6 @@ class CusumCheck(Check):
 class BlockCheck(CusumCheck):
     """A CUSUM check on block means of residual samples, one block per decision period."""
 
-    #: unit of the residual, used in the figure name ``block_mean_residual [unit]``
-    unit: ClassVar[str] = "-"
-
     def __init__(self, ctx: CheckContext, needs: Iterable[str] = ()) -> None:
         super().__init__(ctx, needs)
         self.period = ctx.period
@@ -445,7 +430,7 @@ class BlockCheck(CusumCheck):
         block = self.block
         mean, z = block.z(n_eff_cap)
         if block.n and block.all_active and active and math.isfinite(z):
-            self.figures.update({f"block_mean_residual [{self.unit}]": mean,
+            self.figures.update({f"block_mean_residual [{self.info.unit}]": mean,
                                  "excess [sigma]": z})
             self.book.handle(self.name, self.test.update(z, t, span=self.period), t)
         elif not active or (block.n and not block.all_active):

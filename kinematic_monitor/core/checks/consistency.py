@@ -12,7 +12,7 @@ from __future__ import annotations
 import functools
 from collections import deque
 
-from kinematic_monitor.core.checks.base import Check, CheckContext
+from kinematic_monitor.core.checks.base import Check, CheckContext, CheckInfo
 from kinematic_monitor.core.levels import OK, WARN
 from kinematic_monitor.core.stats import SECONDS_PER_HOUR, chi2_upper, mean_nis_bounds
 
@@ -31,12 +31,11 @@ def nis_bounds(dof: int, n: int, rate_hz: int, windows_warn_per_hour: float
 class FilterConsistencyCheck(Check):
     """See the module docstring; the bounds use the state's localisation update rate."""
 
-    name = "nis"
-    label = "filter consistency"
+    info = CheckInfo("nis", "filter consistency")
 
     def __init__(self, ctx: CheckContext) -> None:
         super().__init__(ctx, ("localization",))
-        self.window = ctx.checks.nis_window
+        self.window = ctx.config.checks.nis_window
         self.nis: deque[float] = deque(maxlen=max(1, self.window))
         self.dof = 3
 
@@ -56,7 +55,7 @@ class FilterConsistencyCheck(Check):
         # the update rate in whole Hz, as for the jump bounds: the bounds are then computed
         # once per rate (the estimate jitters with the stamps)
         rate = max(1, round(self.state.loc_rate_guess))
-        lo, hi, hi_fa = nis_bounds(self.dof, n, rate, self.ctx.checks.false_alarm_rate)
+        lo, hi, hi_fa = nis_bounds(self.dof, n, rate, self.ctx.config.checks.false_alarm_rate)
         figs = {"mean_nis [-]": mean, "mean_nis_95_lower [-]": lo,
                 "mean_nis_95_upper [-]": hi, "mean_nis_warn [-]": hi_fa}
         if mean > hi_fa:

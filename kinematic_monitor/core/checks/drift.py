@@ -14,7 +14,7 @@ import math
 from typing import TYPE_CHECKING
 
 from kinematic_monitor.core import model
-from kinematic_monitor.core.checks.base import CheckContext, CusumCheck, mean_excess_z
+from kinematic_monitor.core.checks.base import CheckContext, CheckInfo, CusumCheck, mean_excess_z
 from kinematic_monitor.core.checks.sideslip import SIDESLIP_TOLERANCE, SideslipCheck
 from kinematic_monitor.core.checks.yaw_rate import LATERAL_KINDS, YawRateCheck
 from kinematic_monitor.core.geometry import angle_diff, pose_error
@@ -31,13 +31,11 @@ IMU_DT = 0.01
 class DriftCheck(CusumCheck):
     """See the module docstring."""
 
-    name = "drift"
-    label = "drift"
-    peak_kinds = LATERAL_KINDS
+    info = CheckInfo("drift", "drift", peak_kinds=LATERAL_KINDS)
 
     def __init__(self, ctx: CheckContext, yaw_rate: YawRateCheck, sideslip: SideslipCheck
                  ) -> None:
-        horizon = ctx.checks.drift_horizon
+        horizon = ctx.config.checks.drift_horizon
         super().__init__(ctx, ("joint_states", "localization"), ctx.cusum(1.0 / horizon))
         self.yaw_rate = yaw_rate
         self.sideslip = sideslip

@@ -10,7 +10,12 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import CheckContext, ThresholdCheck, ThresholdTest
+from kinematic_monitor.core.checks.base import (
+    CheckContext,
+    CheckInfo,
+    ThresholdCheck,
+    ThresholdTest,
+)
 from kinematic_monitor.core.checks.yaw_rate import LATERAL_KINDS
 from kinematic_monitor.core.levels import OK
 from kinematic_monitor.core.model import GRAVITY, kinematic_envelope
@@ -19,12 +24,10 @@ from kinematic_monitor.core.model import GRAVITY, kinematic_envelope
 class GripCheck(ThresholdCheck):
     """See the module docstring."""
 
-    name = "grip"
-    label = "grip"
-    peak_kinds = LATERAL_KINDS
+    info = CheckInfo("grip", "grip", peak_kinds=LATERAL_KINDS)
 
     def __init__(self, ctx: CheckContext) -> None:
-        c = ctx.checks
+        c = ctx.config.checks
         super().__init__(ctx, ThresholdTest(kinematic_envelope(c.friction_assumed), math.inf,
                                             c.min_duration, c.clear_duration))
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import BlockCheck, CheckContext
+from kinematic_monitor.core.checks.base import BlockCheck, CheckContext, CheckInfo
 from kinematic_monitor.core.checks.drift import IMU_DT
 from kinematic_monitor.core.geometry import angle_diff
 from kinematic_monitor.core.samples import ImuSample
@@ -24,13 +24,11 @@ SETTLE_UPDATES = 10
 class HeadingCheck(BlockCheck):
     """See the module docstring."""
 
-    name = "heading"
-    label = "localization heading"
-    unit = "rad"
+    info = CheckInfo("heading", "localization heading", unit="rad")
 
     def __init__(self, ctx: CheckContext) -> None:
         super().__init__(ctx, ("localization", "imu"))
-        self.tau = max(ctx.checks.heading_time_constant, 0.1)
+        self.tau = max(ctx.config.checks.heading_time_constant, 0.1)
         self._heading = 0.0  # IMU-integrated heading [rad]
         self._heading_t = math.nan
         self._offset = math.nan
@@ -78,4 +76,4 @@ class HeadingCheck(BlockCheck):
         # the integrated IMU noise grows as σ·sqrt(dt_imu·τ)
         n_off = min(float(self._n), n_ema)
         noise = sy**2 * (1.0 + 1.0 / n_off) + (self.noise.imu_yaw_rate_std**2) * IMU_DT * self.tau
-        self.block.add(e, noise, self.ctx.checks.heading_tolerance, st.moving())
+        self.block.add(e, noise, self.ctx.config.checks.heading_tolerance, st.moving())

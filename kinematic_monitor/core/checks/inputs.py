@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING
 
-from kinematic_monitor.core.checks.base import Check, CheckContext, LevelTracker
+from kinematic_monitor.core.checks.base import Check, CheckContext, CheckInfo, LevelTracker
 from kinematic_monitor.core.levels import ERROR, OK, STALE, WARN
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -21,14 +21,12 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 class InputCheck(Check):
     """Staleness of input ``input_name`` (one of ``motion.INPUTS``)."""
 
-    peak_kinds = ("input_stale",)
-    peaks_own_events_only = True
 
     def __init__(self, ctx: CheckContext, input_name: str) -> None:
         super().__init__(ctx, ())
         self.input_name = input_name
-        self.name = f"input_{input_name}"  # type: ignore[misc]
-        self.label = f"input {input_name}"  # type: ignore[misc]
+        self.info = CheckInfo(f"input_{input_name}", f"input {input_name}",  # type: ignore[misc]
+                              peak_kinds=("input_stale",), own_events_only=True)
         self.timeout = ctx.state.timeouts[input_name]
         self._tracker = LevelTracker(0.0, 0.0)
 

@@ -20,6 +20,7 @@ from kinematic_monitor.core.checks.base import (
     MODEL_TOLERANCE,
     YAW_RATE_TOLERANCE,
     CheckContext,
+    CheckInfo,
     ThresholdCheck,
     ThresholdTest,
 )
@@ -44,13 +45,11 @@ def jump_bounds(warn_per_hour: float, error_per_hour: float, rate_hz: int
 class LocalizationJumpCheck(ThresholdCheck):
     """See the module docstring."""
 
-    name = "localization"
-    label = "localization jump"
-    peak_kinds = ("localization_fault",)
+    info = CheckInfo("localization", "localization jump", peak_kinds=("localization_fault",))
 
     def __init__(self, ctx: CheckContext) -> None:
-        super().__init__(ctx, ThresholdTest(math.inf, math.inf, 0.0, ctx.checks.clear_duration),
-                         ("localization",))
+        clear = ctx.config.checks.clear_duration
+        super().__init__(ctx, ThresholdTest(math.inf, math.inf, 0.0, clear), ("localization",))
         self.declared_reset_t = -math.inf
 
     def status_message(self, level: int, active: bool, summary: str | None,
@@ -88,7 +87,7 @@ class LocalizationJumpCheck(ThresholdCheck):
             nis_jump = min(nis_jump, self._measured_motion_nis(
                 s, sp, sy, pose, prev, dt, m_rate))
         test = self.test
-        test.warn, test.error = jump_bounds(self.ctx.checks.false_alarm_rate,
+        test.warn, test.error = jump_bounds(self.ctx.config.checks.false_alarm_rate,
                                             self.ctx.error_rate(),
                                             max(1, round(st.loc_rate_guess)))
         jump_pos = math.hypot(lon, lat)

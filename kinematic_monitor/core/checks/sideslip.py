@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 
 from kinematic_monitor.core import model
-from kinematic_monitor.core.checks.base import MODEL_TOLERANCE, BlockCheck, CheckContext
+from kinematic_monitor.core.checks.base import MODEL_TOLERANCE, BlockCheck, CheckContext, CheckInfo
 from kinematic_monitor.core.checks.yaw_rate import LATERAL_KINDS
 
 #: absolute sideslip error allowed to the kinematic prediction [rad] (common practice,
@@ -26,10 +26,7 @@ SIDESLIP_GRADIENT_TOLERANCE = 0.015
 class SideslipCheck(BlockCheck):
     """See the module docstring. ``allowance``: the latest sample's dead band [rad]."""
 
-    name = "sideslip"
-    label = "sideslip"
-    unit = "rad"
-    peak_kinds = LATERAL_KINDS
+    info = CheckInfo("sideslip", "sideslip", unit="rad", peak_kinds=LATERAL_KINDS)
 
     def __init__(self, ctx: CheckContext) -> None:
         super().__init__(ctx, ("joint_states", "localization"))

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import BlockCheck, CheckContext
+from kinematic_monitor.core.checks.base import BlockCheck, CheckContext, CheckInfo
 
 #: rolling-radius error tolerated [-] (common practice, no source)
 WHEEL_SCALE_TOLERANCE = 0.01
@@ -24,9 +24,7 @@ CALIBRATION_MAX_AX = 1.0
 class WheelScaleCheck(BlockCheck):
     """See the module docstring."""
 
-    name = "wheel_scale"
-    label = "wheel speed scale"
-    unit = "-"
+    info = CheckInfo("wheel_scale", "wheel speed scale", unit="-")
 
     def __init__(self, ctx: CheckContext) -> None:
         super().__init__(ctx, ("joint_states", "localization"))

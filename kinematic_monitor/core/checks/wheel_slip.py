@@ -12,7 +12,12 @@ from __future__ import annotations
 
 import math
 
-from kinematic_monitor.core.checks.base import CheckContext, ThresholdCheck, ThresholdTest
+from kinematic_monitor.core.checks.base import (
+    CheckContext,
+    CheckInfo,
+    ThresholdCheck,
+    ThresholdTest,
+)
 
 #: event kinds that keep this check's slip ratios as peak figures
 PEAK_KINDS = ("longitudinal_slip", "calibration_bias")
@@ -33,12 +38,10 @@ def slip_ratio(wheel_speed: float, ground_speed: float, min_speed: float) -> flo
 class WheelSlipCheck(ThresholdCheck):
     """See the module docstring."""
 
-    name = "slip_ratio"
-    label = "wheel slip"
-    peak_kinds = PEAK_KINDS
+    info = CheckInfo("slip_ratio", "wheel slip", peak_kinds=PEAK_KINDS)
 
     def __init__(self, ctx: CheckContext) -> None:
-        c = ctx.checks
+        c = ctx.config.checks
         super().__init__(ctx, ThresholdTest(c.slip_ratio_warn, c.slip_ratio_error,
                                             c.min_duration, c.clear_duration),
                          ("joint_states", "localization"))

@@ -18,6 +18,7 @@ from kinematic_monitor.core.checks.base import (
     YAW_RATE_TOLERANCE,
     BlockCheck,
     CheckContext,
+    CheckInfo,
 )
 from kinematic_monitor.core.samples import ImuSample, LocalizationSample
 
@@ -45,10 +46,7 @@ def yaw_rate_sigma(v: float, delta: float, wheelbase: float, meas_std: float,
 class YawRateCheck(BlockCheck):
     """See the module docstring. ``allowance``: the latest sample's dead band [rad/s]."""
 
-    name = "yaw_rate"
-    label = "yaw rate"
-    unit = "rad/s"
-    peak_kinds = LATERAL_KINDS
+    info = CheckInfo("yaw_rate", "yaw rate", unit="rad/s", peak_kinds=LATERAL_KINDS)
 
     def __init__(self, ctx: CheckContext) -> None:
         super().__init__(ctx, {"joint_states"} | ({"imu"} if ctx.state.imu_enabled else set()))

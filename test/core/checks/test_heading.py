@@ -12,7 +12,7 @@ from kinematic_monitor.core.samples import ImuSample
 def run(offset: float, drift_rate: float, seconds: float = 30.0) -> list[str]:
     """A 0.1 rad/s turn; the localisation yaw carries ``offset`` + ``drift_rate``·t."""
     ctx, st, sink = setup()
-    n = ctx.noise
+    n = ctx.config.noise
     chk = HeadingCheck(ctx)
     rng = np.random.default_rng(2)
     nxt = PERIOD

@@ -18,7 +18,7 @@ def run(beta_true: float, seconds: float = 10.0) -> tuple[SideslipCheck, list[st
     ctx, st, sink = setup()
     chk = SideslipCheck(ctx)
     rng = np.random.default_rng(5)
-    sv = ctx.noise.localization_velocity_std
+    sv = ctx.config.noise.localization_velocity_std
     t, next_decision = 10.0, 10.1
     for _ in range(int(seconds * 50)):
         t += 0.02

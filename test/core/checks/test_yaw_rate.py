@@ -28,7 +28,7 @@ def run(factor: float, seconds: float = 20.0, seed: int = 3) -> tuple[YawRateChe
             chk.decide(next_decision, 10, st.moving())
             next_decision += PERIOD
         steady(st, t, 0.1, 10.0)
-        rate = factor * RATE + rng.normal(0.0, ctx.noise.imu_yaw_rate_std)
+        rate = factor * RATE + rng.normal(0.0, ctx.config.noise.imu_yaw_rate_std)
         s = ImuSample(t, rate, ay=10.0 * rate)
         st.apply_imu(s)
         chk.on_imu(s)
