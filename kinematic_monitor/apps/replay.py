@@ -376,7 +376,7 @@ def _iter_with_progress(source: SampleSource, show: bool, read_ahead: bool = Fal
         bar.close()
 
 
-def _lost_data(source: SampleSource) -> list[str]:
+def _lost_data(source: SampleSource, config: MonitorConfig) -> list[str]:
     """Plain sentences on what the bag reader could not read or had to drop."""
     out: list[str] = []
     if source.damage is not None:
@@ -386,8 +386,10 @@ def _lost_data(source: SampleSource) -> list[str]:
     if late:
         where = ", ".join(f"{topic}: {st.rejected['out_of_order']}"
                           for topic, st in source.stats.items() if st.rejected["out_of_order"])
-        out.append(f"{late} message(s) arrived too late to be used in stamp order (dropped; "
-                   f"{where})")
+        window = config.inputs.reorder_window
+        out.append(f"{late} message(s) arrived up to {source.late_by * 1e3:.0f} ms behind the "
+                   f"others, later than inputs.reorder_window ({window * 1e3:.0f} ms) allows: "
+                   f"dropped ({where}); raise inputs.reorder_window above the inputs' latency")
     jumps = source.time_jumps
     if jumps:
         out.append(f"header-stamp time jumped backwards {jumps} time(s); the monitor was "
@@ -474,7 +476,7 @@ def _run(source: Any, config: Any, outdir: OutputDir, bag_path: str, *, report: 
         result.events = doc["events"]
         result.samples = rec.samples
         result.duration = rec.duration
-        result.lost = _lost_data(source)
+        result.lost = _lost_data(source, config)
         result.counters = _counters(monitor, source)
         result.fixes = sorted((f.stamp, f.latitude, f.longitude) for f in source.fixes)
 

@@ -223,8 +223,12 @@ SPECS: tuple[ParamSpec, ...] = (
             "optional_topic"),
     _string("inputs.qos", "sensor_data", "QoS profile of all subscriptions.",
             choices=("sensor_data", "reliable")),
-    _double("inputs.reorder_window", 0.05, "s",
-            "How long samples wait so that late messages can be put in stamp order.", 0.0, 1.0),
+    _double("inputs.reorder_window", 0.25, "s",
+            "Longest time a sample waits so that later-arriving messages of other inputs can "
+            "be put in stamp order (it is released sooner once every input has passed its "
+            "stamp). It must exceed the latency of the slowest input: a localisation "
+            "publishes 50-150 ms after its stamp; a message later than this is dropped and "
+            "counted.", 0.0, 1.0),
     ParamSpec("inputs.batch_size", "integer", 4,
               "Node only: samples in stamp order are processed together once this many wait "
               "(or inputs.batch_delay has passed); 1 = each at once.", "samples", 1, 1000),

@@ -14,6 +14,7 @@ import math
 from typing import TYPE_CHECKING, NamedTuple
 
 from kinematic_monitor.core import model
+from kinematic_monitor.core.rates import IntervalTracker
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -62,7 +63,8 @@ class MotionState:
         self.imu_enabled = config.inputs.imu.enabled
         self.ref_x = config.inputs.localization.reference_x
         self.timeouts = {"joint_states": t.joint_states, "localization": t.localization,
-                         "imu": t.imu}
+                         "imu": t.imu}  # configured [s]; see timeout()
+        self.rates = {name: IntervalTracker() for name in INPUTS}
         self.position_std, self.yaw_std = n.localization_position_std, n.localization_yaw_std
         self.now = -math.inf
         self.last_seen: dict[str, float] = {k: _NAN for k in INPUTS}
@@ -87,6 +89,11 @@ class MotionState:
         self.lag_allow = 0.0
 
     # ------------------------------------------------------------------ queries
+    def timeout(self, name: str) -> float:
+        """Effective timeout [s] of input ``name``: its configured ``timeouts.*``, or longer
+        for an input slower than that (``rates.GAP_FACTOR`` typical intervals)."""
+        return self.rates[name].timeout(self.timeouts[name])
+
     def have_chassis(self) -> bool:
         """Steering and speed are known."""
         return _isfinite(self.delta) and _isfinite(self.speed)
@@ -94,7 +101,7 @@ class MotionState:
     def ground_speed(self) -> float:
         """CG speed over ground [m/s] from the localisation twist, NaN when not fresh."""
         t, v = self.ground
-        if _isfinite(t) and _isfinite(v) and self.now - t <= self.timeouts["localization"]:
+        if _isfinite(t) and _isfinite(v) and self.now - t <= self.timeout("localization"):
             return v
         return _NAN
 
@@ -111,7 +118,7 @@ class MotionState:
     def imu_fresh(self) -> bool:
         """An IMU sample within timeouts.imu of now."""
         t = self.last_seen["imu"]
-        return self.imu_enabled and _isfinite(t) and self.now - t <= self.timeouts["imu"]
+        return self.imu_enabled and _isfinite(t) and self.now - t <= self.timeout("imu")
 
     def kin_speed(self) -> float:
         """Speed [m/s] for the kinematic prediction: the rear wheels' CG speed, or the
@@ -151,7 +158,7 @@ class MotionState:
         Out-of-range steering is counted (``rejected_steer_range``) and None returned.
         """
         p = self.p
-        hold = self.timeouts["joint_states"]
+        hold = self.timeout("joint_states")
         got_steer = True
         if _isfinite(s.steer):
             delta_m = s.steer
@@ -207,6 +214,7 @@ class MotionState:
                                 and _isfinite(w[3])) else None
         self.n_chassis_block += 1
         self.last_seen["joint_states"] = stamp
+        self.rates["joint_states"].note(stamp)
         self.kin_rate = self.kinematic_rate()
         self._track_kinematic_change(stamp)
 
@@ -236,6 +244,7 @@ class MotionState:
     def apply_imu(self, s: ImuSample) -> None:
         """Take an IMU sample: yaw rate and lateral acceleration (else speed·yaw rate)."""
         self.last_seen["imu"] = s.stamp
+        self.rates["imu"].note(s.stamp)
         self.imu = s
         rate = s.yaw_rate
         self.yaw_rate_imu = rate
@@ -266,6 +275,7 @@ class MotionState:
     def begin_loc(self, s: LocalizationSample) -> None:
         """First step of a localisation sample: its stamp and twist yaw rate."""
         self.last_seen["localization"] = s.stamp
+        self.rates["localization"].note(s.stamp)
         self.yaw_rate_loc = s.yaw_rate
 
     def end_loc(self, s: LocalizationSample, pose: tuple[float, float, float],

@@ -44,6 +44,8 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
 
+from kinematic_monitor.core.rates import IntervalTracker
+
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from kinematic_monitor.config.validation import MonitorConfig
 
@@ -108,6 +110,7 @@ class ReorderBuffer:
         self.first = math.inf
         self.last_released = -math.inf
         self.late_dropped = 0
+        self.late_by = 0.0  # [s] how far behind the released stamps the latest drop was
         self.duplicates = 0  # samples dropped: equal to the previous one of their stream
         self._last_sample: dict[str, Any] = {}  # stream -> previous sample (duplicates)
         self.resets = 0
@@ -115,7 +118,9 @@ class ReorderBuffer:
         self.released_by_watermark = 0
         self.released_by_lag = 0
         self._last: dict[str, float] = {}  # stream -> newest stamp delivered
-        self._timeouts: dict[str, float] = {}  # stream -> its timeout [s], once heard
+        self._timeouts: dict[str, float] = {}  # stream -> its configured timeout [s], once heard
+        self._silent_after: dict[str, float] = {}  # stream -> effective timeout [s] (rates.py)
+        self._rates: dict[str, IntervalTracker] = {}
         self._unheard = set(self.streams)  # declared streams not heard yet
         self.untrusted: set[str] = set()  # streams seen going backwards in stamp
         self._gaps: dict[str, deque[float]] = {}  # stream -> recent stamp gaps [s]
@@ -138,7 +143,7 @@ class ReorderBuffer:
         ahead = self._ahead
         untrusted = self.untrusted
         for name, last in self._last.items():
-            if newest - last > self._timeouts[name]:
+            if newest - last > self._silent_after[name]:
                 continue  # silent: it no longer holds the others back
             if untrusted and name in untrusted:
                 return -math.inf
@@ -177,15 +182,21 @@ class ReorderBuffer:
             else:
                 self._ahead.pop(key, None)
             self._last[key] = stamp
-        if self._unheard or key not in self._timeouts:
+        rate = self._rates.get(key)
+        if rate is None or self._unheard:
             self._timeouts[key] = self._timeout(key)
+            if rate is None:
+                rate = self._rates[key] = IntervalTracker()
             self._unheard.discard(key)
+        rate.note(stamp)
+        self._silent_after[key] = rate.timeout(self._timeouts[key])
         if stamp > self.newest:
             self.newest = stamp
         if stamp < self.first:
             self.first = stamp
         if stamp < self.last_released:
             self.late_dropped += 1
+            self.late_by = max(self.late_by, self.last_released - stamp)
             return out
         heap = self._heap
         heapq.heappush(heap, (stamp, self._seq, sample))
@@ -211,6 +222,7 @@ class ReorderBuffer:
         self.first = math.inf
         self.last_released = -math.inf
         self._last.clear()
+        self._rates.clear()
         self._unheard = set(self.streams)
         self.untrusted.clear()
         self._gaps.clear()
@@ -221,6 +233,7 @@ class ReorderBuffer:
         """New stream timeouts [s] (parameters changed at run time)."""
         self.stream_timeouts.update(timeouts)
         self._timeouts = {k: self._timeout(k) for k in self._timeouts}
+        self._silent_after = {k: self._rates[k].timeout(v) for k, v in self._timeouts.items()}
 
     def _note_gap(self, key: str, gap: float) -> None:
         gaps = self._gaps.get(key)

@@ -142,8 +142,8 @@ def _child(source: SampleSource, conn: Connection) -> None:
                 batch, plain = [], True
         send(_encode(source.position, batch, plain))
         send(_TAG_END + pickle.dumps((source.position, source.stats, source.damage,
-                                      source.out_of_order, source.time_jumps,
-                                      source.warnings, source.fixes)))
+                                      source.out_of_order, source.late_by,
+                                      source.time_jumps, source.warnings, source.fixes)))
     except BaseException as exc:  # noqa: BLE001 - every failure goes to the parent
         try:
             payload = pickle.dumps(exc)
@@ -198,7 +198,8 @@ def iter_samples(source: SampleSource, progress: Progress | None = None,
             elif tag == _TAG_END:
                 finished = True
                 (source.position, source.stats, source.damage, source.out_of_order,
-                 source.time_jumps, source.warnings, source.fixes) = pickle.loads(body)
+                 source.late_by, source.time_jumps, source.warnings,
+                 source.fixes) = pickle.loads(body)
                 if progress is not None:
                     progress(source.position, total)
                 return

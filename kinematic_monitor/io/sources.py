@@ -64,7 +64,8 @@ class SampleSource(Protocol):
     ``message_count``: messages on the used topics (for a progress bar); ``position``:
     those read so far; ``stats``: per used topic; ``warnings``: plain sentences (e.g. an
     optional topic missing); ``damage``: None if the recording read cleanly;
-    ``out_of_order``: samples dropped as too late for stamp order; ``time_jumps``:
+    ``out_of_order``: samples dropped as too late for stamp order (``late_by`` [s]: by up to
+    how much); ``time_jumps``:
     backward stamp jumps (each gives a ``TimeReset`` in the stream); ``fixes``: the GNSS
     fixes read, in arrival order (they only place the drive on a map: they are not part of
     the stamp-ordered stream the monitor takes).
@@ -78,6 +79,7 @@ class SampleSource(Protocol):
     warnings: list[str]
     damage: BagDamage | None
     out_of_order: int
+    late_by: float
     time_jumps: int
     fixes: list[GnssSample]
 

@@ -103,12 +103,15 @@ def test_silent_stream_stops_holding_back_after_its_timeout() -> None:
     b = ReorderBuffer(lag=0.05, reset_threshold=5.0, stream_timeouts={"b": 0.02},
                       lookahead=0.0)
     _warm(b)
-    # 'b' stays silent: 0.21 held until 'b' is older than its 0.02 s timeout
+    # 'b' stays silent: 0.21 held until 'b' is older than its timeout, here the longer of
+    # the configured 0.02 s and 2.5 typical intervals of 'b' (its median interval is 20 ms,
+    # so 0.05 s: core/rates.py)
     assert b.push(S(0.21, 1), "a") == []
-    out = b.push(S(0.225, 2), "a")  # newest - last(b) = 0.025 > 0.02: only 'a' counts
-    assert [s.tag for s in out] == [1, 2]
+    assert b.push(S(0.245, 2), "a") == []  # newest - last(b) = 0.045: not yet silent
+    out = b.push(S(0.255, 3), "a")  # 0.055 > 0.05: only 'a' counts
+    assert [s.tag for s in out] == [1, 2, 3]
     # a sample of the silent stream older than what went out is late: counted, dropped
-    assert b.push(S(0.205, 3), "b") == [] and b.late_dropped == 1
+    assert b.push(S(0.205, 4), "b") == [] and b.late_dropped == 1
 
 
 def test_no_watermark_before_lag_of_stamps_seen() -> None:

@@ -40,7 +40,7 @@ class HeadingCheck(BlockCheck):
         stamp = s.stamp
         ht = self._heading_t
         if math.isfinite(ht):
-            if 0.0 < stamp - ht <= self.state.timeouts["imu"]:
+            if 0.0 < stamp - ht <= self.state.timeout("imu"):
                 self._heading += s.yaw_rate * (stamp - ht)
             elif stamp > ht:
                 self._offset = math.nan  # gap: the integrated heading is lost
@@ -50,7 +50,7 @@ class HeadingCheck(BlockCheck):
         """A localisation yaw [rad] with its std [rad]."""
         st = self.state
         if not st.imu_fresh() or not (math.isfinite(yaw) and math.isfinite(self._heading_t)) \
-                or stamp - self._heading_t > st.timeouts["imu"]:
+                or stamp - self._heading_t > st.timeout("imu"):
             self._offset = math.nan
             return
         # IMU heading extrapolated to the localisation stamp with the latest rate

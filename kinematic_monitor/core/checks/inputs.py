@@ -25,9 +25,9 @@ class InputCheck(Check):
     def __init__(self, ctx: CheckContext, input_name: str) -> None:
         super().__init__(ctx, ())
         self.input_name = input_name
+        self.timeout = ctx.state.timeouts[input_name]  # [s] effective, as of the last decision
         self.info = CheckInfo(f"input_{input_name}", f"input {input_name}",  # type: ignore[misc]
                               peak_kinds=("input_stale",), own_events_only=True)
-        self.timeout = ctx.state.timeouts[input_name]
         self._tracker = LevelTracker(0.0, 0.0)
 
     @property
@@ -50,12 +50,13 @@ class InputCheck(Check):
         the first sample of any input (``first_stamp``)."""
         last = self.state.last_seen[self.input_name]
         ref = last if math.isfinite(last) else first_stamp
-        stale = math.isfinite(ref) and t - ref > self.timeout
+        timeout = self.timeout = self.state.timeout(self.input_name)
+        stale = math.isfinite(ref) and t - ref > timeout
         level = (WARN if self.input_name == "imu" else ERROR) if stale else OK
-        out = self._tracker.update(level, t, onset=ref + self.timeout if math.isfinite(ref)
+        out = self._tracker.update(level, t, onset=ref + timeout if math.isfinite(ref)
                                    else t, end_hint=last if math.isfinite(last) else t)
         self.figures = {"age [s]": t - ref if math.isfinite(ref) else math.nan,
-                        "timeout [s]": self.timeout}
+                        "timeout [s]": timeout}
         self.book.handle(self.name, out, t)
 
     def status_message(self, level: int, active: bool, summary: str | None,

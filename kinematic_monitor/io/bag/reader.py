@@ -73,6 +73,7 @@ class BagSource:
         self.out_of_order = 0
         self.time_jumps = 0
         self.fixes: list[GnssSample] = []
+        self.late_by = 0.0  # [s] largest lateness of a message dropped as too late
         self.position = 0
         self.scalar_inputs: dict[str, list[ScalarInput]] = {}
         self.storage, self._files, meta = storage_files(self.path)
@@ -262,6 +263,7 @@ class BagSource:
                 yield from released
         yield from buf.flush()
         self.time_jumps = buf.resets
+        self.late_by = buf.late_by
         last_out = buf.last_released
         if progress is not None:
             progress(self.position, self.message_count)
