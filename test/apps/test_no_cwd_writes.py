@@ -18,7 +18,6 @@ import time
 from pathlib import Path
 
 import pytest
-
 from dds_helpers import new_domain_id, ros_env, start_publisher, write_params
 
 
