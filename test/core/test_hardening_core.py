@@ -30,6 +30,8 @@ import numpy as np
 import pytest
 
 pytest.importorskip("sensor_msgs")
+# rclpy message classes in this process: run under every tested ROS release
+pytestmark = pytest.mark.dds
 
 from kinematic_monitor.config import validation  # noqa: E402
 from kinematic_monitor.core import ordering  # noqa: E402

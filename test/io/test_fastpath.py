@@ -446,6 +446,7 @@ def _rclpy_messages(rng: random.Random) -> list[tuple[str, Any]]:
     return out
 
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 def test_rclpy_serialized_bytes_match_typed_conversion() -> None:
     # what a raw subscription hands over: rclpy's serialize_message output (the rmw's CDR);
     # the fused result must equal convert.*_from_msg on the rclpy message object (typed mode)
@@ -460,6 +461,7 @@ def test_rclpy_serialized_bytes_match_typed_conversion() -> None:
     assert n_ok > 50
 
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 def test_message_mode_switch_and_malformed_counting(monkeypatch: pytest.MonkeyPatch) -> None:
     node = pytest.importorskip("kinematic_monitor.ros.node")
     monkeypatch.delenv(node.MESSAGES_ENV, raising=False)
