@@ -183,6 +183,8 @@ def test_localization_jump_raises_event_on_topic_and_log(run: Run) -> None:
     node = run.node(params, executor="events")
     lis = run.listen()
     assert _wait_output(node, "running (", 15.0), node.output()
+    # the event is sent once on a volatile topic: the listener must hear the node first
+    assert lis.wait_matched(15.0), node.output()
     run.publisher("--duration", "2.5", "--jump-at", "1.5", "--jump", "3.0")
 
     def got_event() -> bool:
