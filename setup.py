@@ -5,15 +5,14 @@ from setuptools import find_packages, setup
 
 package_name = "kinematic_monitor"
 
-ROS_WHEELS = [
-    "ros-rclpy",
-    "ros-rmw-fastrtps-cpp",
-    "ros-std-msgs",
-    "ros-sensor-msgs",
-    "ros-nav-msgs",
-    "ros-geometry-msgs",
-    "ros-diagnostic-msgs",
-]
+# ROS packages the node imports at run time, as registry wheel names without the prefix
+ROS_PACKAGES = ["rclpy", "rmw-fastrtps-cpp", "std-msgs", "sensor-msgs", "nav-msgs",
+                "geometry-msgs", "diagnostic-msgs"]
+# newest release (Kilted today): the unprefixed wheels
+ROS_WHEELS = ["ros-" + p for p in ROS_PACKAGES]
+# Jazzy (the long-term-support release): its meta-wheels pin the unprefixed wheels to
+# Jazzy's versions, so this extra and "ros" cannot share one environment
+ROS_JAZZY_WHEELS = ["ros-jazzy-" + p for p in ROS_PACKAGES]
 
 setup(
     name=package_name,
@@ -31,6 +30,7 @@ setup(
         # rclpy and the standard message packages as PyPI wheels, for machines
         # without a ROS install. On a ROS install these come from the distribution.
         "ros": ROS_WHEELS,
+        "ros-jazzy": ROS_JAZZY_WHEELS,
         # offline tools: bag reading/writing, report plots, progress bars
         "tools": ["rosbags>=0.10", "matplotlib", "tqdm"],
         # fleet sweep: parallel replay of many bags on Dask, GeoJSON low-grip map
@@ -44,6 +44,14 @@ setup(
             "ruff",
             "mypy",
             "types-PyYAML",
+            # the colcon build test (test/packaging) and its package.xml check
+            "colcon-core",
+            "colcon-ros",
+            "colcon-python-setup-py",
+            "catkin-pkg",
+            # the annotated bag read back by the MCAP reference reader
+            "mcap",
+            "mcap-ros2-support",
         ],
     },
     zip_safe=True,

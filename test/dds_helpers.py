@@ -153,12 +153,22 @@ class Listener:
         self.diagnostics: list[Any] = []
         self.events: list[Any] = []
         self.predictions: list[Any] = []
-        self.node.create_subscription(DiagnosticArray, "/diagnostics",
-                                      self.diagnostics.append, 50)
-        self.node.create_subscription(DiagnosticStatus, f"/{node_name}/events",
-                                      self.events.append, 50)
-        self.node.create_subscription(Odometry, f"/{node_name}/prediction",
-                                      self.predictions.append, 50)
+        self._subs = [
+            self.node.create_subscription(DiagnosticArray, "/diagnostics",
+                                          self.diagnostics.append, 50),
+            self.node.create_subscription(DiagnosticStatus, f"/{node_name}/events",
+                                          self.events.append, 50),
+            self.node.create_subscription(Odometry, f"/{node_name}/prediction",
+                                          self.predictions.append, 50),
+        ]
+
+    def wait_matched(self, timeout: float) -> bool:
+        """Spin until each subscription has matched a publisher (DDS discovery done).
+
+        ~/events is volatile: an event published before the match is never delivered.
+        """
+        return self.spin_until(
+            lambda: all(s.get_publisher_count() > 0 for s in self._subs), timeout)
 
     def spin_until(self, predicate: Callable[[], bool], timeout: float,
                    alive: Callable[[], bool] = lambda: True) -> bool:

@@ -22,7 +22,7 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-from kinematic_monitor.apps.cli import EXIT_OK, UsageError
+from kinematic_monitor.apps.cli import EXIT_OK, UsageError, make_parent_folders
 
 HELP = "estimate steering offset, wheel-speed scale and geometry from recorded drives"
 
@@ -185,8 +185,6 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.exists() and not args.force:
         raise UsageError(f"--out {out} exists already (use --force to overwrite)")
-    if not out.parent.exists():
-        raise UsageError(f"--out {out}: folder {out.parent} does not exist")
     if not (math.isfinite(args.min_usable) and args.min_usable > 0):
         raise UsageError(f"--min-usable {args.min_usable!r} must be a positive number of s")
     try:
@@ -221,6 +219,7 @@ def run(args: argparse.Namespace) -> int:
         f"{result.total_seconds:.0f} s; uncertainties are 1 sigma",
     ]
     body = files.dumps_params_yaml(new_values, notes)
+    make_parent_folders(out, "--out")
     out.write_text("\n".join(header) + "\n" + body, encoding="utf-8")
     text = report_text(result, list(args.bags))
     if args.report:

@@ -15,6 +15,7 @@ import importlib
 import os
 import sys
 from collections.abc import Sequence
+from pathlib import Path
 from typing import Any
 
 from kinematic_monitor import __version__
@@ -50,6 +51,15 @@ def load_config(path: str) -> Any:
         return validate(load_params_file(path))
     except ParamError as exc:
         raise UsageError(f"parameter file {path!r}: {exc}") from None
+
+
+def make_parent_folders(path: Path, option: str) -> None:
+    """Create the missing folders above output ``path``; ``UsageError`` naming ``option``."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"{option} {path}: cannot create folder {path.parent} "
+                         f"({exc.strerror})") from None
 
 
 def progress_wanted() -> bool:

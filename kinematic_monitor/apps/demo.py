@@ -24,6 +24,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import tempfile
 import threading
 import time
 from collections import Counter
@@ -38,7 +39,7 @@ HELP = ("live demo: simulated vehicle and the node as separate processes over DD
 
 CAUTION = ("CAUTION: kinematic_monitor is an advisory tool for test engineers; it is not a "
            "safety function and must not be relied on to keep a vehicle or people safe.")
-DEFAULT_OUT = "kinematic_monitor_demo"
+DEFAULT_OUT_PREFIX = "kinematic_monitor_demo_"  # default --out: a new temporary folder
 DEFAULT_DURATION = 50.0  # [s] of simulated driving: two laps of the pad
 DEMO_SEED = 3
 TIME_TOLERANCE = 0.2  # [s] live vs offline start / detected_at (the project's criterion)
@@ -268,9 +269,10 @@ class Child:
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Options of ``kinematic-monitor demo``."""
-    parser.add_argument("--out", metavar="DIR", default=DEFAULT_OUT,
-                        help=f"folder for the drive, the live event log and the report "
-                             f"(default: ./{DEFAULT_OUT})")
+    parser.add_argument("--out", metavar="DIR", default=None,
+                        help="folder for the drive, the live event log and the report "
+                             "(created; default: a new folder in the system's temporary "
+                             f"folder, {DEFAULT_OUT_PREFIX}*, named when the demo starts)")
     parser.add_argument("--force", action="store_true",
                         help="replace the outputs of an earlier demo in --out")
     parser.add_argument("--duration", type=float, default=DEFAULT_DURATION, metavar="S",
@@ -291,6 +293,10 @@ def _check_args(args: argparse.Namespace) -> Path:
         raise UsageError(f"--rate {args.rate!r} must be between 0.1 and 20")
     if args.domain_id is not None and not 0 <= args.domain_id <= 101:
         raise UsageError(f"--domain-id {args.domain_id} must be in 0..101")
+    if args.out is None:  # nothing in the working directory unless asked
+        out = Path(tempfile.mkdtemp(prefix=DEFAULT_OUT_PREFIX))
+        print(f"writing the demo into {out} (choose the folder with --out DIR)", flush=True)
+        return out
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"--out {out} exists and is not a folder")

@@ -15,7 +15,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from kinematic_monitor.apps.cli import EXIT_OK, UsageError
+from kinematic_monitor.apps.cli import EXIT_OK, UsageError, make_parent_folders
 
 HELP = "simulate a demo drive (optionally with injected faults) into a rosbag2 folder"
 
@@ -33,7 +33,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument("scenario", nargs="?", help="scenario name (see --list)")
     parser.add_argument("--list", action="store_true", help="print scenario names and exit")
-    parser.add_argument("--out", metavar="BAG", help="output rosbag2 folder (must not exist)")
+    parser.add_argument("--out", metavar="BAG",
+                        help="output rosbag2 folder (must not exist; missing parent folders "
+                        "are created)")
     parser.add_argument(
         "--storage",
         choices=("mcap", "sqlite3"),
@@ -67,8 +69,6 @@ def _scenarios() -> dict[str, Callable[..., Any]]:
 def _prepare_out(out: Path, force: bool) -> None:
     """Refuse an existing path unless --force and it is a bag folder (or empty)."""
     if not out.exists() and not out.is_symlink():
-        if not out.parent.exists():
-            raise UsageError(f"--out {out}: parent folder {out.parent} does not exist")
         return
     if not force:
         raise UsageError(f"--out {out} exists already (use --force to replace a bag folder)")
@@ -161,6 +161,7 @@ def run(args: argparse.Namespace) -> int:
                 f"({trace.duration:g} s)"
             )
     show = not args.no_progress and sys.stderr.isatty()
+    make_parent_folders(out, "--out")
     result = write_simulation(
         out,
         trace,

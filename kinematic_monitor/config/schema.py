@@ -338,8 +338,11 @@ SPECS: tuple[ParamSpec, ...] = (
     _double("timeouts.imu", 0.5, "s", "IMU data older than this is stale.",
             0.0, 60.0, lo_inc=False, runtime=True),
     # output
-    _string("output.events_log", "kinematic_monitor_events.jsonl",
-            "JSON-lines event log, flushed at each event start and end.", "path"),
+    _string("output.events_log", "{ros_log_dir}/kinematic_monitor_events_{run}.jsonl",
+            "JSON-lines event log, flushed at each event start and end. {ros_log_dir} is the "
+            "ROS log directory (ROS_LOG_DIR, else ROS_HOME/log, else ~/.ros/log), {run} this "
+            "run's start time and process id; a relative path is relative to the node's "
+            "working directory. The node logs the file it writes.", "path"),
     _double("output.diagnostics_period", 1.0, "s", "Period of /diagnostics publication.",
             0.0, 1.0, lo_inc=False),
     _string("output.prediction_frame", "map", "Frame id of the ~/prediction odometry.", "frame"),

@@ -59,7 +59,14 @@ from sensor_msgs.msg import Imu, JointState
 
 from kinematic_monitor.config import schema, validation
 from kinematic_monitor.core import ordering
-from kinematic_monitor.io import convert, decode, event_files, outgoing, scalar_inputs
+from kinematic_monitor.io import (
+    convert,
+    decode,
+    event_files,
+    log_location,
+    outgoing,
+    scalar_inputs,
+)
 from kinematic_monitor.ros import messages as rm
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -340,14 +347,15 @@ class KinematicMonitorNode(Node):
         # converters divide steering-wheel angles by the ratio first: the limit is on the
         # road-wheel angle
         self._max_steer = cfg.vehicle.max_road_wheel_angle
-        path = cfg.output.events_log
         self.event_log: event_files.EventLogWriter | None = None
-        if path:
+        if cfg.output.events_log:
+            path = log_location.events_log_path(cfg.output.events_log)
             try:
+                path.parent.mkdir(parents=True, exist_ok=True)
                 self.event_log = event_files.EventLogWriter(path)
             except OSError as exc:
                 raise StartupError(
-                    f"parameter 'output.events_log': cannot open {path!r}: {exc.strerror}"
+                    f"parameter 'output.events_log': cannot open {str(path)!r}: {exc.strerror}"
                 ) from exc
             self.get_logger().info(f"event log: {os.path.abspath(path)}")
 

@@ -36,6 +36,18 @@ def test_version_flag(capsys) -> None:  # type: ignore[no-untyped-def]
     assert __version__ in capsys.readouterr().out
 
 
+def test_console_script_version_is_the_installed_distribution_version() -> None:
+    # the version pip recorded for the install (importlib.metadata), printed by the command
+    from importlib.metadata import version
+
+    exe = shutil.which("kinematic-monitor", path=os.path.dirname(sys.executable))
+    assert exe is not None
+    out = subprocess.run([exe, "--version"], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == f"kinematic-monitor {version('kinematic_monitor')}"
+    assert version("kinematic_monitor") == __version__
+
+
 def test_no_subcommand_is_usage_error(capsys) -> None:  # type: ignore[no-untyped-def]
     assert cli.main([]) == cli.EXIT_USAGE
 

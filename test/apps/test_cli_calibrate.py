@@ -79,12 +79,19 @@ def test_five_minute_drive_recovers_offset_and_scale(gentle_bag: Path, tmp_path:
     assert "wrote" in capsys.readouterr().out
 
 
+def test_out_in_missing_folders_creates_them(gentle_bag: Path, tmp_path: Path) -> None:
+    out = tmp_path / "a" / "b" / "calibrated_params.yaml"
+    assert _run([str(gentle_bag), "--params", str(gentle_bag / "params.yaml"), "--out",
+                 str(out)]) == 0
+    files.load_config(out)  # written and valid
+
+
 def test_short_drive_is_refused_with_reason(tmp_path: Path) -> None:
     bag = _simulate(tmp_path / "short", 25.0, [])
     with pytest.raises(UsageError, match=r"only \d+ s of usable driving; need at least 60 s"):
         _run([str(bag), "--params", str(bag / "params.yaml"), "--out",
-              str(tmp_path / "x.yaml")])
-    assert not (tmp_path / "x.yaml").exists()
+              str(tmp_path / "new" / "x.yaml")])
+    assert not (tmp_path / "new").exists()  # a refused run creates no folder either
 
 
 def test_existing_out_refused_and_bad_params_named(tmp_path: Path) -> None:

@@ -129,3 +129,27 @@ def test_same_seed_gives_identical_message_bytes(tmp_path: Path) -> None:
         json.loads((tmp_path / "a" / "truth.json").read_text())["truth"]
         == json.loads((tmp_path / "b" / "truth.json").read_text())["truth"]
     )
+
+
+def test_out_in_missing_folders_creates_them(tmp_path: Path) -> None:
+    out = tmp_path / "a" / "b" / "bag"
+    assert cli.main(["simulate", SCENARIO, "--out", str(out), "--duration", "1",
+                     "--no-progress"]) == 0
+    assert (out / "metadata.yaml").is_file() and (out / "truth.json").is_file()
+
+
+def test_out_under_a_file_is_refused_naming_it(tmp_path: Path,
+                                               capsys: pytest.CaptureFixture[str]) -> None:
+    (tmp_path / "a").write_text("a file, not a folder")
+    out = tmp_path / "a" / "bag"
+    assert cli.main(["simulate", SCENARIO, "--out", str(out), "--duration", "1",
+                     "--no-progress"]) == cli.EXIT_USAGE
+    err = capsys.readouterr().err
+    assert "--out" in err and str(tmp_path / "a") in err
+    assert (tmp_path / "a").read_text() == "a file, not a folder"
+
+
+def test_refused_run_creates_no_folders(tmp_path: Path) -> None:
+    out = tmp_path / "new" / "bag"
+    assert cli.main(["simulate", SCENARIO, "--out", str(out), "--duration", "-1"]) == 2
+    assert not (tmp_path / "new").exists()

@@ -171,6 +171,7 @@ def test_live_demo_interrupted_leaves_nothing_running(tmp_path: Path) -> None:
 
 # --- the player's errors (no DDS traffic: they happen before any node is made) -------------
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 def test_player_names_a_missing_bag_unknown_topic_and_bad_type(tmp_path: Path) -> None:
     pytest.importorskip("rclpy")
     from kinematic_monitor.ros.player import PlayerError, message_class, play

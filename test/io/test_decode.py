@@ -451,6 +451,7 @@ def _rclpy_messages(rng: random.Random) -> list[tuple[str, Any]]:
     return out
 
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 def test_rclpy_serialized_bytes_match_the_message_object_path() -> None:
     # what a raw subscription hands over: rclpy's serialize_message output (the rmw's CDR);
     # the decoder's result must equal the message-object converters on the rclpy object
@@ -465,6 +466,7 @@ def test_rclpy_serialized_bytes_match_the_message_object_path() -> None:
     assert n_ok > 50
 
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 def test_node_publishes_bytes_with_a_fallback_for_old_rclpy() -> None:
     # rclpy's Publisher.publish takes serialized bytes; an rclpy whose publish refuses them
     # (TypeError) gets the message object rclpy itself deserialises from the same bytes

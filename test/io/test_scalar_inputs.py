@@ -145,6 +145,7 @@ def test_joint_map_wheels_only() -> None:
         cv.JointMap(())
 
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 @pytest.mark.parametrize("type_name", [
     "geometry_msgs/msg/TwistStamped", "geometry_msgs/msg/PoseWithCovariance",
     "sensor_msgs/msg/JointState", "sensor_msgs/msg/NavSatFix", "std_msgs/msg/Float32",
@@ -154,6 +155,7 @@ def test_rclpy_type_lookup_agrees_with_rosbags(type_name: str) -> None:
     assert rm.rclpy_fields_of(type_name) == typestore_fields(TS)(type_name)
 
 
+@pytest.mark.dds  # rclpy in this process: run under every tested ROS release
 def test_import_message_class_errors_name_the_type() -> None:
     rm = pytest.importorskip("kinematic_monitor.ros.messages")
     assert rm.import_message_class("std_msgs/msg/Float64").__name__ == "Float64"

@@ -30,6 +30,8 @@ import numpy as np
 import pytest
 
 pytest.importorskip("sensor_msgs")
+# rclpy message classes in this process: run under every tested ROS release
+pytestmark = pytest.mark.dds
 
 import sample_msgs as rm  # noqa: E402
 from rclpy.serialization import serialize_message  # noqa: E402
