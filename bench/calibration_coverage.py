@@ -80,11 +80,13 @@ def simulated_samples(seed: int, duration: float) -> tuple[list[Any], dict[str, 
 
 def run_seed(seed: int, duration: float, n_boot: int = 200) -> SeedResult:
     """Calibrate one simulated drive (see the module docstring)."""
-    from kinematic_monitor.core.calibration import estimate as cal
+    from kinematic_monitor.config.validation import validate
+    from kinematic_monitor.core import calibration as cal
 
     samples, values = simulated_samples(seed, duration)
-    res = cal.calibrate(samples, values, cal.SelectionRules(min_usable=min(60.0, duration / 4)),
-                        seed=seed, n_boot=n_boot)
+    res = cal.calibrate(samples, validate(values),
+                        cal.SelectionRules(min_usable=min(60.0, duration / 4)), seed=seed,
+                        n_boot=n_boot)
     eo, es = res.estimates["vehicle.steering_offset"], res.estimates["vehicle.wheel_speed_scale"]
     return SeedResult(seed, eo.fitted, eo.uncertainty, es.fitted, es.uncertainty,
                       res.usable_seconds)

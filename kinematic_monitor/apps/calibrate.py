@@ -83,7 +83,7 @@ def _unc(e: Any) -> str:
 
 def comments(result: Any, written: dict[str, Any]) -> dict[str, str]:
     """Per-parameter notes for the YAML: uncertainty and data used, or why not fitted."""
-    from kinematic_monitor.core.calibration import estimate as cal
+    from kinematic_monitor.core import calibration as cal
 
     notes: dict[str, str] = {}
     data = (f"{result.usable_seconds:.0f} s usable driving in {result.n_segments} segments")
@@ -115,7 +115,7 @@ def comments(result: Any, written: dict[str, Any]) -> dict[str, str]:
 
 def report_text(result: Any, sources: list[str]) -> str:
     """Plain-text report: estimates, residuals before/after, data used and rejected."""
-    from kinematic_monitor.core.calibration import estimate as cal
+    from kinematic_monitor.core import calibration as cal
 
     lines = ["kinematic-monitor calibration report", "", "data: " + ", ".join(sources),
              f"  {result.total_seconds:.0f} s of localisation, {result.usable_seconds:.0f} s "
@@ -175,7 +175,7 @@ def result_json(result: Any) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     """Run ``calibrate``; returns the exit code (UsageError -> 2 via the CLI)."""
     from kinematic_monitor.config import files, schema, validation
-    from kinematic_monitor.core.calibration import estimate as cal
+    from kinematic_monitor.core import calibration as cal
     from kinematic_monitor.io.bag import BagError
 
     out = Path(args.out)
