@@ -31,6 +31,9 @@ from kinematic_monitor.core.calibration.signals import (
 from kinematic_monitor.core.model import VehicleParams
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 
+#: column order of :attr:`Aligned.wheels` (front left, front right, rear left, rear right)
+WHEEL_ORDER = ("front_left", "front_right", "rear_left", "rear_right")
+
 
 @dataclass
 class Aligned:
@@ -50,6 +53,15 @@ class Aligned:
     steer_rate: np.ndarray  # [rad/s]
     yaw_accel: np.ndarray  # [rad/s^2]
     dt: np.ndarray  # [s] time each sample stands for
+    wheels: np.ndarray  # [rad/s] shape (n, 4) in WHEEL_ORDER, NaN where missing
+    loc_rate: np.ndarray  # [rad/s] yaw rate of the localisation alone (twist, else d yaw/dt)
+    imu_rate: np.ndarray  # [rad/s] IMU yaw rate, NaN where no IMU
+    imu_ax: np.ndarray  # [m/s^2] IMU x acceleration (IMU axes), NaN where no IMU
+    imu_ay: np.ndarray  # [m/s^2] IMU y acceleration (IMU axes), NaN where no IMU
+    loc_ax: np.ndarray  # [m/s^2] CG acceleration from the twist, body x: dvx/dt - r vy
+    loc_ay: np.ndarray  # [m/s^2] CG acceleration from the twist, body y: dvy/dt + r vx
+    loc_yaw_rate_sq: np.ndarray  # [rad^2/s^2] loc_rate squared (centripetal lever-arm term)
+    loc_yaw_accel: np.ndarray  # [rad/s^2] d loc_rate / dt (tangential lever-arm term)
     yaw_rate_source: str
 
     @property
@@ -95,22 +107,23 @@ def _collect(samples: Iterable[Any], v: VehicleParams
              ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
     """Localisation, chassis and IMU rows sorted by stamp (None without both first two).
 
-    Chassis columns: stamp, bicycle angle, mean front and rear wheel speed. The measured
-    bicycle angle is given directly, else it comes from the left/right pair (the converters
-    have divided steering-wheel angles by the ratio).
+    Chassis columns: stamp, bicycle angle, mean front and rear wheel speed, then the four
+    wheels in WHEEL_ORDER. The measured bicycle angle is given directly, else it comes from
+    the left/right pair (the converters have divided steering-wheel angles by the ratio).
     """
     ch: list[tuple[float, ...]] = []
     loc: list[tuple[float, ...]] = []
     imu: list[tuple[float, ...]] = []
     for s in samples:
         if isinstance(s, ChassisSample):
-            ch.append((s.stamp, s.steer, s.steer_left, s.steer_right,
-                       0.5 * (s.wheel_front_left + s.wheel_front_right),
-                       0.5 * (s.wheel_rear_left + s.wheel_rear_right)))
+            fl, fr, rl, rr = (s.wheel_front_left, s.wheel_front_right, s.wheel_rear_left,
+                              s.wheel_rear_right)
+            ch.append((s.stamp, s.steer, s.steer_left, s.steer_right, 0.5 * (fl + fr),
+                       0.5 * (rl + rr), fl, fr, rl, rr))
         elif isinstance(s, LocalizationSample):
             loc.append((s.stamp, s.x, s.y, s.yaw, s.vx, s.vy, s.yaw_rate))
         elif isinstance(s, ImuSample):
-            imu.append((s.stamp, s.yaw_rate, s.ax))
+            imu.append((s.stamp, s.yaw_rate, s.ax, s.ay))
     if not loc or not ch:
         return None
     L = _by_stamp(np.array(loc, dtype=float))
@@ -118,7 +131,7 @@ def _collect(samples: Iterable[Any], v: VehicleParams
     pair = bicycle_angle(C[:, 2], C[:, 3], v)
     C = np.column_stack([C[:, 0], np.where(np.isfinite(C[:, 1]), C[:, 1], pair), C[:, 4:]])
     keep = np.concatenate([[True], np.diff(L[:, 0]) > 0.0])
-    I = _by_stamp(np.array(imu, dtype=float)) if imu else np.zeros((0, 3))
+    I = _by_stamp(np.array(imu, dtype=float)) if imu else np.zeros((0, 4))
     return L[keep], C, I
 
 
@@ -185,6 +198,24 @@ def _long_accel(t: np.ndarray, I: np.ndarray, vx: np.ndarray, nsm: int,
     return derivative(t, vx, nsm)
 
 
+def _accelerations(t: np.ndarray, vx: np.ndarray, vy: np.ndarray, rate: np.ndarray,
+                   imu: list[np.ndarray], nsm: int) -> dict[str, np.ndarray]:
+    """Body-frame accelerations [m/s^2] from the (smoothed) twist and the IMU's, filtered alike.
+
+    Rigid-body kinematics in a rotating frame: ``a_x = dvx/dt - r vy``, ``a_y = dvy/dt +
+    r vx``. Every term passes the same moving average over ``nsm`` samples (the one the
+    derivative applies), so the IMU and the twist see the same filter.
+    """
+    return {
+        "loc_ax": derivative(t, vx, nsm) - smooth(rate * vy, nsm),
+        "loc_ay": derivative(t, vy, nsm) + smooth(rate * vx, nsm),
+        "loc_yaw_rate_sq": smooth(rate * rate, nsm),
+        "loc_yaw_accel": derivative(t, rate, nsm),
+        "imu_ax": smooth(imu[1], nsm),
+        "imu_ay": smooth(imu[2], nsm),
+    }
+
+
 def _window(seconds: float, dt_med: float) -> int:
     return max(int(round(seconds / max(dt_med, 1e-6))), 1)
 
@@ -209,15 +240,20 @@ def align(samples: Iterable[Any], v: VehicleParams, reference_x: float,
     wr, ok_r = interp_with_gap(t, C[:, 0], C[:, 3], rules.max_gap)
     gap = rules.max_gap
     wf = interp_or_nan(t, C[:, 0], C[:, 2], gap)
-    r_s = smooth_nan(r, nfit)
+    wheels = np.column_stack([smooth_nan(interp_or_nan(t, C[:, 0], C[:, j], gap), nfit)
+                              for j in range(4, 8)])
+    imu = [smooth_nan(interp_or_nan(t, I[:, 0], I[:, j], gap), nfit) for j in (1, 2, 3)]
+    loc_rate = smooth_nan(np.where(np.isfinite(L[:, 6]), L[:, 6], np.gradient(yaw, t)), nfit)
+    r_s, vx_s, vy_s = smooth_nan(r, nfit), smooth_nan(vx, nfit), smooth_nan(vy - reference_x * r,
+                                                                             nfit)
     return Aligned(
-        t=t, source=np.full(len(t), source), vx=smooth_nan(vx, nfit),
-        vy=smooth_nan(vy - reference_x * r, nfit), r=r_s, steer=smooth_nan(steer, nfit),
-        w_front=smooth_nan(wf, nfit), w_rear=smooth_nan(wr, nfit),
+        t=t, source=np.full(len(t), source), vx=vx_s, vy=vy_s, r=r_s,
+        steer=smooth_nan(steer, nfit), w_front=smooth_nan(wf, nfit), w_rear=smooth_nan(wr, nfit),
         valid=ok_s & ok_r & np.isfinite(vx) & np.isfinite(r),
         jump=_jumps(t, x, y, yaw, vx, vy, r, rules), ax=_long_accel(t, I, vx, nsm, gap),
         steer_rate=derivative(t, np.nan_to_num(steer), nsm),
         yaw_accel=derivative(t, r_s, nsm),
         dt=np.minimum(np.concatenate([np.diff(t), [dt_med]]), rules.max_gap),
-        yaw_rate_source=src,
+        wheels=wheels, loc_rate=loc_rate, imu_rate=imu[0],
+        **_accelerations(t, vx_s, vy_s, loc_rate, imu, nsm), yaw_rate_source=src,
     )

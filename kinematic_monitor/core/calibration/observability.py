@@ -23,15 +23,19 @@ class Resolution:
     """Largest standard error at which a quantity still counts as observable.
 
     Our choices (common practice, no source): a tenth of the effect each calibration is
-    meant to catch (1 deg offset, 2 % radius), a few centimetres for lengths.
+    meant to catch (1 deg offset, 2 % radius, 1 deg IMU yaw, the 0.001 rad/s gyro bias the
+    heading check starts to see), a few centimetres for lengths.
     """
 
     steering_offset: float = 0.002  # [rad] ~0.1 deg
-    wheel_speed_scale: float = 0.002  # [-]
+    wheel_speed_scale: float = 0.002  # [-] (also each wheel's own scale)
     steering_ratio: float = 0.02  # [relative]
     wheelbase: float = 0.02  # [m]
     cg_to_rear_axle: float = 0.05  # [m]
     understeer_gradient: float = 3.0e-4  # [rad/(m/s^2)] ~0.17 deg/g
+    gyro_bias: float = 1.0e-4  # [rad/s] ~0.006 deg/s
+    gyro_bias_drift: float = 1.0e-6  # [rad/s^2] 0.06 mrad/s per minute
+    imu_yaw: float = 0.002  # [rad] ~0.1 deg
 
 
 @dataclass(frozen=True)

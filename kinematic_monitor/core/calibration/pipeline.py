@@ -12,12 +12,14 @@ Steps, each in its own module: align every input on the localisation stamps
 (:mod:`.alignment`); select kinematic driving and cut it into bootstrap segments
 (:mod:`.selection`); fit by least squares (:mod:`.fitting`) and judge observability
 (:mod:`.observability`): steering offset, ratio and wheelbase (:mod:`.steering`),
-wheel-speed scales of the axles (:mod:`.wheels`), l_r (:mod:`.cg_position`) and the
-understeer gradient (:mod:`.understeer`); residuals before and after (:mod:`.residuals`).
+wheel-speed scales of the axles and of each wheel (:mod:`.wheels`), l_r
+(:mod:`.cg_position`), the understeer gradient (:mod:`.understeer`), the gyro bias and its
+drift (:mod:`.gyro`) and the IMU yaw misalignment (:mod:`.imu_mounting`); residuals before
+and after (:mod:`.residuals`).
 
-The stated errors are checked by ``bench/calibration_coverage.py`` (20 seeds of a 5-minute
+The stated errors are checked by ``bench/calibration_coverage.py`` (seeds of a 5-minute
 simulated gentle drive with the dynamic simulator: the 95 % intervals cover the injected
-offset and scale).
+offset, scales, gyro bias and IMU yaw).
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from kinematic_monitor.core.calibration import gyro, imu_mounting
 from kinematic_monitor.core.calibration.alignment import Aligned, align, concat
 from kinematic_monitor.core.calibration.cg_position import NAME as CG
 from kinematic_monitor.core.calibration.cg_position import fit_cg_position
@@ -37,13 +40,14 @@ from kinematic_monitor.core.calibration.results import (
     CalibrationError,
     CalibrationResult,
     Estimate,
+    Residuals,
 )
 from kinematic_monitor.core.calibration.rules import SelectionRules
-from kinematic_monitor.core.calibration.selection import segments, select
+from kinematic_monitor.core.calibration.selection import segments, select, select_imu
 from kinematic_monitor.core.calibration.steering import fit_steering, steering_wheel_input
 from kinematic_monitor.core.calibration.understeer import NAME as UNDERSTEER
 from kinematic_monitor.core.calibration.understeer import fit_understeer
-from kinematic_monitor.core.calibration.wheels import fit_axles
+from kinematic_monitor.core.calibration.wheels import fit_axles, fit_wheels
 from kinematic_monitor.core.samples import ChassisSample, ImuSample, LocalizationSample
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -94,14 +98,17 @@ def calibrate(
     usek = segk >= 0
     est[UNDERSTEER] = fit_understeer(d.subset(usek), segk[usek], v, steering.offset,
                                      steering.factor, steering.wheelbase, ctx, rules, notes)
+    residuals = kinematic_residuals(sub, v, est, steering)
+    imu_seconds = _imu_estimates(d, config, rules, exclude, ctx, est, residuals, notes)
+    est.update(fit_wheels(sub, S, v, steering.wheelbase, ctx, notes))
     return CalibrationResult(
         estimates=est, usable_seconds=float(np.sum(d.dt[use])),
         k_usable_seconds=float(np.sum(d.dt[usek])), total_seconds=float(np.sum(d.dt)),
         n_segments=int(len(np.unique(S))),
         rejected_seconds={k: s for k, s in reasons.items() if s > 0.0},
-        residuals=kinematic_residuals(sub, v, est, steering),
+        residuals=residuals,
         steering_input="steering_wheel" if steering_wheel_input(config) else "road_wheel",
-        yaw_rate_source=d.yaw_rate_source, notes=notes,
+        yaw_rate_source=d.yaw_rate_source, notes=notes, imu_seconds=imu_seconds,
     )
 
 
@@ -136,3 +143,32 @@ def _require_usable(d: Aligned, use: np.ndarray, rules: SelectionRules,
         f"only {usable:.0f} s of usable driving; need at least {rules.min_usable:.0f} s "
         f"of moving, low-lateral-acceleration data (of {float(np.sum(d.dt)):.0f} s; rejected: "
         f"{why or 'short runs'})")
+
+
+def _imu_estimates(d: Aligned, config: MonitorConfig, rules: SelectionRules,
+                   exclude: Sequence[tuple[float, float]], ctx: FitContext,
+                   est: dict[str, Estimate], residuals: list[Residuals],
+                   notes: list[str]) -> float:
+    """Gyro bias and drift and the IMU yaw into ``est``; returns the seconds used."""
+    seg = segments(d, select_imu(d, exclude), rules)
+    use = seg >= 0
+    seconds = float(np.sum(d.dt[use]))
+    if seconds < rules.min_imu_usable:
+        why = (f"only {seconds:.0f} s of IMU data with localisation (need "
+               f"{rules.min_imu_usable:g} s)" if np.any(np.isfinite(d.imu_rate))
+               else "no IMU in the data")
+        est.update(gyro.not_fitted(why).estimates)
+        est[imu_mounting.YAW] = imu_mounting.not_fitted(why)
+        return seconds
+    g = gyro.fit_gyro(d.subset(use), seg[use], config.vehicle, rules, ctx, notes)
+    est.update(g.estimates)
+    if g.residual is not None:
+        residuals.append(g.residual)
+    acc = use & np.isfinite(d.imu_ax) & np.isfinite(d.imu_ay) & np.isfinite(d.loc_ax) \
+        & np.isfinite(d.loc_ay)
+    if float(np.sum(d.dt[acc])) < rules.min_imu_usable:
+        est[imu_mounting.YAW] = imu_mounting.not_fitted("too little IMU acceleration data "
+                                                        "with localisation")
+    else:
+        est[imu_mounting.YAW] = imu_mounting.fit_imu_mounting(d.subset(acc), seg[acc], ctx)
+    return seconds

@@ -16,7 +16,7 @@ class Estimate:
 
     ``name`` is a parameter name (dotted, as in the parameter file, e.g.
     ``vehicle.steering_offset``) or a report-only name without a parameter (no ``vehicle.``
-    prefix, e.g. ``front_wheel_speed_scale``); only parameters are ever written to a file.
+    prefix, e.g. ``imu_gyro_bias``); only parameters are ever written to a file.
     """
 
     name: str
@@ -72,6 +72,7 @@ class CalibrationResult:
     steering_input: str  # "road_wheel" or "steering_wheel"
     yaw_rate_source: str
     notes: list[str] = field(default_factory=list)
+    imu_seconds: float = 0.0  # [s] of data used for the IMU estimates
 
     def parameter_updates(self) -> dict[str, float]:
         """Parameter-file values to write: observable estimates of schema parameters."""
@@ -80,3 +81,7 @@ class CalibrationResult:
             if e.is_parameter and e.observable and math.isfinite(e.value):
                 out[e.name] = float(e.value)
         return out
+
+    def report_only(self) -> list[Estimate]:
+        """The estimates that have no parameter (reported, never written)."""
+        return [e for e in self.estimates.values() if not e.is_parameter]

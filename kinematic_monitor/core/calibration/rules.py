@@ -26,6 +26,8 @@ class SelectionRules:
     segment_length: float = 5.0  # [s] bootstrap block length
     min_usable: float = 60.0  # [s] least usable driving for a calibration
     min_k_spread: float = 0.5  # [m/s^2] std. dev. of a_y needed to fit K
+    standstill_speed: float = 0.05  # [m/s] below it (localisation and wheels) the car stands
+    min_imu_usable: float = 30.0  # [s] least IMU data with localisation for the IMU estimates
 
     def __post_init__(self) -> None:
         for name, value in vars(self).items():

@@ -4,9 +4,11 @@ Kinematic driving (:func:`select`): speed ``vx >= min_speed``; steady-state late
 acceleration ``a_y = vx * r`` within a limit; longitudinal acceleration, steering rate and
 yaw acceleration small (steady inputs); no wheel slip (rear-axle wheel speed within
 ``max_wheel_slip`` of the drive's median ratio to ground speed); no localisation jump;
-outside caller-given ``exclude`` windows (e.g. the events of a replay). Usable runs shorter
-than ``min_run`` are dropped; runs are cut into segments of at most ``segment_length``
-seconds for the bootstrap (:func:`segments`).
+outside caller-given ``exclude`` windows (e.g. the events of a replay). Rigid-body
+kinematics hold in any motion, so the IMU estimates use every aligned sample outside jumps
+and excluded windows (:func:`select_imu`). Usable runs shorter than ``min_run`` are
+dropped; runs are cut into segments of at most ``segment_length`` seconds for the
+bootstrap (:func:`segments`).
 """
 
 from __future__ import annotations
@@ -59,6 +61,19 @@ def select(d: Aligned, v: VehicleParams, rules: SelectionRules, max_ay: float,
             reasons[name] = float(np.sum(d.dt[sel & bad]))
         sel &= ~bad
     return sel
+
+
+def select_imu(d: Aligned, exclude: Sequence[tuple[float, float]]) -> np.ndarray:
+    """Samples with IMU and localisation, outside localisation jumps and excluded windows."""
+    have = np.isfinite(d.imu_rate) & np.isfinite(d.loc_rate) & np.isfinite(d.vx)
+    return have & ~d.jump & ~excluded(d, exclude)
+
+
+def standstill(d: Aligned, v: VehicleParams, rules: SelectionRules) -> np.ndarray:
+    """True where the localisation speed and the rear wheels' speed are both near zero."""
+    wheel_speed = np.abs(v.wheel_radius * d.w_rear)
+    return (np.hypot(d.vx, d.vy) < rules.standstill_speed) & \
+        (wheel_speed < rules.standstill_speed)
 
 
 def segments(d: Aligned, sel: np.ndarray, rules: SelectionRules) -> np.ndarray:

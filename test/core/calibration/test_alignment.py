@@ -2,8 +2,9 @@
 
 The drives are steady circles built in code: speed v on radius R (at the rear axle), yaw
 rate r = v / R, CG lateral velocity l_r r and no lateral velocity at the rear axle
-(Rajamani 2012, kinematic model, from memory for the section); REP 103 signs: a left turn
-has positive r and a_y.
+(Rajamani 2012, kinematic model, from memory for the section); in body axes the CG
+acceleration is (-r vy_cg, r vx) (rigid body in a rotating frame, REP 103 signs: a left
+turn has positive r and a_y).
 """
 
 from __future__ import annotations
@@ -53,10 +54,32 @@ def test_rear_axle_base_link_gives_the_cg_lateral_velocity() -> None:
     np.testing.assert_allclose(d.vy[inner], 1.35 * 0.2, rtol=0, atol=1e-9)
     np.testing.assert_allclose(d.r[inner], 0.2, rtol=0, atol=1e-12)
     assert d.yaw_rate_source == "localisation twist"
-    # steady-state a_y = vx r = v^2 / R and the rear-axle path curvature r / vx [C]
-    np.testing.assert_allclose(d.ay[inner], 10.0**2 / 50.0, rtol=0, atol=1e-9)
-    np.testing.assert_allclose(d.kappa[inner], 1.0 / 50.0, rtol=0, atol=1e-12)
 
+
+def test_accelerations_implied_by_the_twist() -> None:
+    # a_x = dvx/dt - r vy_cg = -0.2 * 0.27, a_y = dvy/dt + r vx = 0.2 * 10 = v^2 / R [C]
+    d = alignment.align(circle(), V, 0.0, RULES, 0)
+    assert d is not None
+    inner = slice(50, -50)
+    np.testing.assert_allclose(d.loc_ax[inner], -0.2 * 0.27, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(d.loc_ay[inner], 10.0**2 / 50.0, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(d.loc_yaw_rate_sq[inner], 0.04, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(d.loc_yaw_accel[inner], 0.0, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(d.ay[inner], 2.0, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(d.kappa[inner], 1.0 / 50.0, rtol=0, atol=1e-12)
+    assert np.isnan(d.imu_rate).all() and np.isnan(d.imu_ax).all()  # no IMU in the data
+
+
+def test_imu_values_on_the_localisation_stamps() -> None:
+    d = alignment.align(circle(imu=(0.21, 0.1, 1.9)), V, 0.0, RULES, 0)
+    assert d is not None
+    inner = slice(50, -50)
+    np.testing.assert_allclose(d.imu_rate[inner], 0.21, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(d.imu_ax[inner], 0.1, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(d.imu_ay[inner], 1.9, rtol=0, atol=1e-12)
+    # the twist's yaw rate is used, the IMU's only stands in for a missing one
+    np.testing.assert_allclose(d.r[inner], 0.2, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(d.loc_rate[inner], 0.2, rtol=0, atol=1e-12)
 
 
 @pytest.mark.parametrize(("imu", "source"), [
@@ -68,6 +91,8 @@ def test_yaw_rate_without_twist_rate(imu: tuple[float, float, float] | None,
     d = alignment.align(circle(twist_rate=False, imu=imu), V, 0.0, RULES, 0)
     assert d is not None and d.yaw_rate_source == source
     np.testing.assert_allclose(d.r[50:-50], 0.2, rtol=0, atol=1e-9)
+    # the localisation's own rate is its differenced yaw either way
+    np.testing.assert_allclose(d.loc_rate[50:-50], 0.2, rtol=0, atol=1e-9)
 
 
 def test_chassis_gap_makes_samples_invalid() -> None:
@@ -109,8 +134,8 @@ def test_drives_concatenate_and_subset_keep_every_field() -> None:
     b = alignment.align(circle(duration=3.0, twist_rate=False), V, 0.0, RULES, 1)
     assert a is not None and b is not None
     d = alignment.concat([a, b])
-    assert len(d.t) == len(a.t) + len(b.t) == len(d.w_rear)
+    assert len(d.t) == len(a.t) + len(b.t) == d.wheels.shape[0]
     assert set(np.unique(d.source)) == {0, 1}
     assert d.yaw_rate_source == "differenced localisation yaw, localisation twist"
     sub = d.subset(d.source == 1)
-    assert len(sub.t) == len(b.t) and np.array_equal(sub.yaw_accel, b.yaw_accel)
+    assert len(sub.t) == len(b.t) and np.array_equal(sub.loc_ay, b.loc_ay)

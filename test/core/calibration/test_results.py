@@ -1,4 +1,4 @@
-"""Result types: which estimates are written."""
+"""Result types: which estimates are written, which are report-only."""
 
 from __future__ import annotations
 
@@ -18,6 +18,7 @@ def test_only_observable_parameters_are_written() -> None:
                  Estimate("imu_gyro_bias", "rad/s", 0.0, 0.003, 1e-5, 1e-5),
                  Estimate("vehicle.wheel_speed_scale", "-", 1.0, math.nan, observable=True))
     assert res.parameter_updates() == {"vehicle.steering_offset": 0.01}
+    assert [e.name for e in res.report_only()] == ["imu_gyro_bias"]
 
 
 def test_uncertainty_is_the_larger_finite_error() -> None:

@@ -11,7 +11,7 @@ from fixtures.calibration import config, make_drive
 from kinematic_monitor.core.calibration import selection
 from kinematic_monitor.core.calibration.alignment import Aligned, align
 from kinematic_monitor.core.calibration.rules import SelectionRules
-from kinematic_monitor.core.samples import ChassisSample
+from kinematic_monitor.core.samples import ChassisSample, LocalizationSample
 
 V = config().vehicle
 RULES = SelectionRules()
@@ -69,8 +69,32 @@ def test_segments_are_runs_cut_into_blocks() -> None:
     assert len(ids) >= 10
 
 
+def test_standstill_needs_both_localisation_and_wheels_near_zero() -> None:
+    samples: list[object] = []
+    for k in range(2000):
+        t = 50.0 + 0.01 * k
+        moving_wheels = k >= 1000  # the wheels turn while the localisation stands
+        w = 1.0 if moving_wheels else 0.0
+        samples.append(ChassisSample(t, steer=0.0, wheel_rear_left=w, wheel_rear_right=w))
+        if k % 2 == 0:
+            samples.append(LocalizationSample(t, 0.0, 0.0, 0.0, vx=0.0, vy=0.0, yaw_rate=0.0))
+    d = aligned(samples)
+    still = selection.standstill(d, V, RULES)
+    assert still[d.t < 59.0].all()
+    assert not still[d.t > 61.0].any()
+
+
+def test_imu_selection_needs_imu_and_avoids_jumps() -> None:
+    d = aligned(make_drive(5, 30.0))
+    assert not selection.select_imu(d, ()).any()  # no IMU in this drive
+    d.imu_rate[:] = 0.0
+    sel = selection.select_imu(d, [(1005.0, 1006.0)])
+    assert not sel[(d.t >= 1005.0) & (d.t <= 1006.0)].any()
+    assert sel[(d.t > 1010.0) & (d.t < 1020.0)].all()
+
+
 def test_bad_selection_rule_named() -> None:
     with pytest.raises(ValueError, match="min_speed"):
         SelectionRules(min_speed=-1.0)
-    with pytest.raises(ValueError, match="segment_length"):
-        SelectionRules(segment_length=math.nan)
+    with pytest.raises(ValueError, match="standstill_speed"):
+        SelectionRules(standstill_speed=math.nan)
