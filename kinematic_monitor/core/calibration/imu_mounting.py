@@ -14,6 +14,12 @@ out). The gains absorb ``cos phi``, accelerometer scale and the gravity that bod
 roll add in proportion to a_x and a_y; the biases absorb accelerometer bias and a fixed
 mounting tilt (g sin 1 deg = 0.17 m/s^2, REALISM.md). ``a_x, a_y`` are from the
 localisation twist (:func:`kinematic_monitor.core.calibration.alignment.align`).
+
+The lever arm is a nuisance only, not reported: a time offset ``dt`` between the IMU's
+stamps and the localisation's (an IMU's own low-pass filter delays it) shows as
+``a_y(t - dt) ~ a_y - dt v dr/dt``, the same column as ``x dr/dt``, so the fitted ``x`` is
+``x - v dt`` and no lever arm. Gains far from 1 mean the IMU accelerations do not follow
+the vehicle's (wrong axes, a dead accelerometer): the yaw is then not observable.
 """
 
 from __future__ import annotations

@@ -99,7 +99,9 @@ def calibrate(
     est[UNDERSTEER] = fit_understeer(d.subset(usek), segk[usek], v, steering.offset,
                                      steering.factor, steering.wheelbase, ctx, rules, notes)
     residuals = kinematic_residuals(sub, v, est, steering)
-    imu_seconds = _imu_estimates(d, config, rules, exclude, ctx, est, residuals, notes)
+    imu_est, imu_residuals, imu_seconds = _imu_estimates(d, config, rules, exclude, ctx, notes)
+    est.update(imu_est)
+    residuals.extend(imu_residuals)
     est.update(fit_wheels(sub, S, v, steering.wheelbase, ctx, notes))
     return CalibrationResult(
         estimates=est, usable_seconds=float(np.sum(d.dt[use])),
@@ -146,10 +148,9 @@ def _require_usable(d: Aligned, use: np.ndarray, rules: SelectionRules,
 
 
 def _imu_estimates(d: Aligned, config: MonitorConfig, rules: SelectionRules,
-                   exclude: Sequence[tuple[float, float]], ctx: FitContext,
-                   est: dict[str, Estimate], residuals: list[Residuals],
-                   notes: list[str]) -> float:
-    """Gyro bias and drift and the IMU yaw into ``est``; returns the seconds used."""
+                   exclude: Sequence[tuple[float, float]], ctx: FitContext, notes: list[str]
+                   ) -> tuple[dict[str, Estimate], list[Residuals], float]:
+    """Gyro bias and drift and the IMU yaw, the IMU residual, and the seconds used."""
     seg = segments(d, select_imu(d, exclude), rules)
     use = seg >= 0
     seconds = float(np.sum(d.dt[use]))
@@ -157,13 +158,10 @@ def _imu_estimates(d: Aligned, config: MonitorConfig, rules: SelectionRules,
         why = (f"only {seconds:.0f} s of IMU data with localisation (need "
                f"{rules.min_imu_usable:g} s)" if np.any(np.isfinite(d.imu_rate))
                else "no IMU in the data")
-        est.update(gyro.not_fitted(why).estimates)
-        est[imu_mounting.YAW] = imu_mounting.not_fitted(why)
-        return seconds
+        return ({**gyro.not_fitted(why).estimates, imu_mounting.YAW: imu_mounting.not_fitted(why)},
+                [], seconds)
     g = gyro.fit_gyro(d.subset(use), seg[use], config.vehicle, rules, ctx, notes)
-    est.update(g.estimates)
-    if g.residual is not None:
-        residuals.append(g.residual)
+    est = dict(g.estimates)
     acc = use & np.isfinite(d.imu_ax) & np.isfinite(d.imu_ay) & np.isfinite(d.loc_ax) \
         & np.isfinite(d.loc_ay)
     if float(np.sum(d.dt[acc])) < rules.min_imu_usable:
@@ -171,4 +169,4 @@ def _imu_estimates(d: Aligned, config: MonitorConfig, rules: SelectionRules,
                                                         "with localisation")
     else:
         est[imu_mounting.YAW] = imu_mounting.fit_imu_mounting(d.subset(acc), seg[acc], ctx)
-    return seconds
+    return est, [] if g.residual is None else [g.residual], seconds

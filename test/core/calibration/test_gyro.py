@@ -47,6 +47,18 @@ def test_drift_is_found_and_estimated() -> None:
     assert per_minute == pytest.approx(math.degrees(d.value) * 60.0, abs=1e-4)
 
 
+def test_scale_error_does_not_read_as_bias() -> None:
+    # a gyro reading 1.5 % high (scale-factor error; MEMS parts have about a percent, from
+    # memory) on a drive turning mostly left (mean yaw rate ~0.05 rad/s): unmodelled, the
+    # bias would come out 0.015 * 0.05 = 7.5e-4 rad/s high, many standard errors
+    spec = ImuSpec(bias=0.002, scale=0.015)
+    drive = make_drive(6, 200.0, curv_mean=0.006, imu=spec)
+    res = cal.calibrate(drive, config(), cal.SelectionRules(max_lateral_accel=3.0), seed=6)
+    e = res.estimates[cal.GYRO_BIAS]
+    assert abs(e.value - 0.002) < 4 * e.uncertainty and e.uncertainty < 2e-4
+    assert any(n.startswith("the gyro reads yaw rate +1.5") for n in res.notes), res.notes
+
+
 def test_bias_errors_cover_truth_over_seeds() -> None:
     # |error| < 1.96 SE in >= 17 of 20 seeds (binomial: P(X <= 16 | p = 0.95) = 1.6 %,
     # scipy.stats.binom.cdf(16, 20, 0.95))
