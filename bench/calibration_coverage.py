@@ -8,11 +8,12 @@ A. the acceptance case: a gentle drive on our handling loop, the steering readin
    high and the wheel radius in the file 2 % small (faults ``steer-offset`` and
    ``wheel-radius``). The calibration must give the offset -1.0 deg and the scale 1/0.98.
 B. the same drive with the imperfections of REALISM.md on top (test/fixtures/calibration.py
-   adds what the simulator lacks on this branch): a gyro bias drawn from +-0.5 deg/s and a
-   linear drift from +-3e-6 rad/s^2 (an invented range, about 0.01 deg/s per minute), the
-   IMU yawed by +-1.5 deg and 0-1 m off the CG, accelerometer biases of +-0.1 m/s^2, and
-   the rear left wheel's speed 2 % high against the right (its radius in the file 2 %
-   small). Checked: steering offset, gyro bias and drift, IMU yaw, each rear wheel's scale.
+   adds what the simulator lacks on this branch): a gyro bias drawn from +-0.5 deg/s (MEMS
+   zero-rate offset [M]) and a linear drift from +-3e-6 rad/s^2 (an invented range, about
+   0.01 deg/s per minute), the IMU yawed by +-1.5 deg (~1 deg [M]) and 0-1 m off the CG,
+   accelerometer biases of +-0.1 m/s^2 [M], and the rear left wheel's speed 2 % high
+   against the right (its radius in the file 2 % small; measured on a production car
+   [Meas]). Checked: steering offset, gyro bias and drift, IMU yaw, each rear wheel's scale.
    The front wheels are driven, so their scales carry the traction slip; they are printed
    but not counted. The axle scale is not counted either: with unequal sides it is not a
    constant (it follows the turns).
@@ -45,7 +46,7 @@ STEER_FAULT = math.radians(1.0)  # [rad] measured = true + this
 RADIUS_ERROR = -0.02  # [-] measured wheel speed = (1 + this) * true
 TRUE_OFFSET = -STEER_FAULT  # parameter convention: delta_true = delta_measured + offset
 TRUE_SCALE = 1.0 / (1.0 + RADIUS_ERROR)  # effective radius = wheel_radius * scale
-LEFT_RIGHT = 1.02  # rear left wheel speed / right in case B (REALISM.md: 2 %)
+LEFT_RIGHT = 1.02  # rear left wheel speed / right in case B (REALISM.md [Meas]: 2 %)
 
 #: acceptance accuracy of the issue
 OFFSET_TOL = math.radians(0.05)  # [rad]

@@ -77,12 +77,13 @@ def _stream(path: str, config: Any) -> Iterator[Any]:
 _DEGREES = {"rad": (1.0, "deg"), "rad/s": (1.0, "deg/s"), "rad/s^2": (60.0, "deg/s per minute")}
 
 
-def _fmt(x: float, unit: str, spec: str) -> str:
-    """``x`` in ``unit`` (none for '-'), plus degrees for angles and angular rates."""
-    text = f"{x:{spec}}" + ("" if unit == "-" else f" {unit}")
+def _fmt(x: float, unit: str, digits: int, sign: str = "") -> str:
+    """``x`` in ``unit`` (none for '-') to ``digits`` significant digits, plus degrees for
+    angles and angular rates (at most 4 digits)."""
+    text = f"{x:{sign}.{digits}g}" + ("" if unit == "-" else f" {unit}")
     if unit in _DEGREES:
         factor, deg = _DEGREES[unit]
-        text += f" ({math.degrees(x) * factor:{spec.replace('6', '4')}} {deg})"
+        text += f" ({math.degrees(x) * factor:{sign}.{min(digits, 4)}g} {deg})"
     return text
 
 
@@ -99,7 +100,7 @@ def report_only_lines(result: Any, wheel_radius: float) -> list[str]:
     for e in result.report_only():
         if not e.observable:
             continue
-        value, sigma = _fmt(e.value, e.unit, "+.6g"), _fmt(e.uncertainty, e.unit, ".2g")
+        value, sigma = _fmt(e.value, e.unit, 6, "+"), _fmt(e.uncertainty, e.unit, 2)
         text = f"{e.name:30s} {value} +-{sigma}"
         if e.name.endswith("wheel_speed_scale") and math.isfinite(wheel_radius):
             text += f"; effective radius {wheel_radius * e.value:.5f} m"

@@ -7,8 +7,8 @@ at the middle of each drive, ``d`` [rad/s^2] a linear drift over ``tau``, the ti
 middle, and ``s`` [-] the gyro's scale-factor error, a nuisance: without it a scale error
 times the mean yaw rate of a drive that turns more one way than the other reads as bias.
 On a steady circle bias and scale cannot be told apart (the correlation rule says so).
-A heading integrated from the gyro drifts by ``b`` per second (REALISM.md, inertial
-sensors), so a heading check must know ``b``; a drift that stands out from its standard
+A heading integrated from the gyro drifts by ``b`` radians per second, so a heading check
+must know ``b``; a drift that stands out from its standard
 error says the bias wanders in the drive (e.g. warming up) and is best tracked online.
 """
 

@@ -3,8 +3,8 @@
 The IMU's axes are yawed by ``phi`` (counter-clockwise about z, REP 103) against
 ``base_link``, and it sits ``x`` [m] ahead of the CG. Rigid-body kinematics give the
 acceleration of its point in body axes, ``a_P = (a_x - x r^2, a_y + x dr/dt)``
-(REALISM.md, inertial sensors: a lever arm adds ``x * dr/dt`` to the lateral one), and the
-IMU measures it rotated by ``-phi``:
+(the tangential and centripetal terms of a point on a rotating body), and the IMU measures
+it rotated by ``-phi``:
 
     ax_m = g_x a_Px + sin(phi) a_Py + b_x,    ay_m = -sin(phi) a_Px + g_y a_Py + b_y.
 
@@ -12,7 +12,7 @@ Fitted by least squares on both rows at once, linear in ``(sin phi, g_x, g_y, x,
 b_y)`` (the products of ``x`` with ``g - 1`` and ``sin phi`` are second order and left
 out). The gains absorb ``cos phi``, accelerometer scale and the gravity that body pitch and
 roll add in proportion to a_x and a_y; the biases absorb accelerometer bias and a fixed
-mounting tilt (g sin 1 deg = 0.17 m/s^2, REALISM.md). ``a_x, a_y`` are from the
+mounting tilt (a 1 deg tilt adds g sin 1 deg = 0.17 m/s^2). ``a_x, a_y`` are from the
 localisation twist (:func:`kinematic_monitor.core.calibration.alignment.align`).
 
 The lever arm is a nuisance only, not reported: a time offset ``dt`` between the IMU's

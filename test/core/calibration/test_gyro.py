@@ -2,8 +2,8 @@
 
 Drives from test/fixtures/calibration.py (an IMU reading the true yaw rate + bias + drift
 (t - middle) + white noise) and the simulator's own ``ImuConfig.gyro_bias``. Figures:
-REALISM.md, inertial sensors (zero-rate offset up to +-0.5-1 deg/s uncalibrated, from
-memory there).
+REALISM.md, inertial sensors (zero-rate offset up to +-0.5-1 deg/s uncalibrated [M], from
+memory there) and measured on a production car [Meas].
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ from kinematic_monitor.core.samples import ChassisSample, ImuSample, Localizatio
 
 
 def test_bias_within_its_standard_error_and_no_drift_found() -> None:
-    bias = math.radians(0.3)  # 0.3 deg/s, a start-up-calibrated MEMS gyro (REALISM.md)
+    bias = math.radians(0.3)  # a start-up-calibrated MEMS gyro (REALISM.md [M], from memory)
     res = cal.calibrate(make_drive(1, 200.0, imu=ImuSpec(bias=bias)), config(), seed=1)
     e = res.estimates[cal.GYRO_BIAS]
     assert e.observable and not e.is_parameter and e.unit == "rad/s"
@@ -90,7 +90,8 @@ def _standstill(t0: float, seconds: float, bias: float, last: LocalizationSample
 
 
 def test_standstill_reads_the_bias_against_zero() -> None:
-    bias = -0.0028  # REALISM.md: the production car's yaw-rate sensor at standstill -0.16 deg/s
+    # REALISM.md [Meas]: a production car's yaw-rate sensor at standstill reads -0.16 deg/s
+    bias = -0.0028
     drive = make_drive(3, 120.0, imu=ImuSpec(bias=bias))
     last = [s for s in drive if isinstance(s, LocalizationSample)][-1]
     drive += _standstill(last.stamp + 0.5, 40.0, bias, last, 3)

@@ -1,7 +1,7 @@
 """IMU yaw misalignment: its accelerations against those implied by the localisation twist.
 
 The IMU of test/fixtures/calibration.py measures the rigid-body acceleration of its point,
-(a_x - x r^2, a_y + x dr/dt) (REALISM.md, inertial sensors), in axes yawed by phi
+(a_x - x r^2, a_y + x dr/dt) (rigid-body kinematics [C], REALISM.md), in axes yawed by phi
 counter-clockwise (REP 103); the rotation is checked against transforms3d here.
 """
 
@@ -40,7 +40,7 @@ def test_fixture_rotation_is_a_counter_clockwise_mounting_yaw() -> None:
 
 
 def test_yaw_recovered_with_lever_arm_and_accelerometer_bias() -> None:
-    phi = math.radians(1.0)  # REALISM.md: the IMU yaw axis can be misaligned by ~1 deg
+    phi = math.radians(1.0)  # REALISM.md [M]: the IMU yaw axis can be misaligned by ~1 deg
     spec = ImuSpec(yaw=phi, lever_x=0.8, accel_bias=(0.06, -0.09))
     res = cal.calibrate(make_drive(1, 300.0, imu=spec), config(), seed=1)
     e = res.estimates[cal.IMU_YAW]

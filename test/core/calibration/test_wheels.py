@@ -59,7 +59,7 @@ def test_wheel_centre_ground_speeds() -> None:
 
 
 def test_each_wheel_gets_its_own_scale() -> None:
-    # rear left radius 2 % small in truth (REALISM.md: left and right rear wheels differ by
+    # rear left radius 2 % small in truth (REALISM.md [Meas]: left and right rear wheels differ by
     # 2 %), front right 1 % large; axle scale 1.01 on top
     side = (1.0, 1.01, 0.98, 1.0)
     res = cal.calibrate(make_drive(7, 200.0, scale=1.01, side=side), config(), seed=7)
@@ -90,7 +90,7 @@ def test_equal_sides_give_no_note_and_missing_front_wheels_no_front_scales() -> 
 def test_simulated_two_percent_left_right_mismatch_is_found() -> None:
     # the dynamic simulator's front-driven car; the rear left wheel's speed reads 2 % high
     # (its radius in the file 2 % small), as measured between left and right rear wheels
-    # (REALISM.md). The rear wheels roll freely, so each one's scale is that wheel's radius.
+    # (REALISM.md [Meas]). The rear wheels roll freely, so each one's scale is that wheel's radius.
     imp = Imperfections(wheel_factors=(1.0, 1.0, 1.02, 1.0))
     samples, cfg, _ = simulated_drive(11, 240.0, imperfect=imp)
     res = cal.calibrate(samples, cfg, cal.SelectionRules(min_usable=60.0), seed=11)
