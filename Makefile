@@ -58,7 +58,7 @@ lint: $(STAMP)
 
 typecheck: $(STAMP)
 	$(VENV)/bin/mypy
-	$(VENV)/bin/mypy --strict --follow-imports=silent kinematic_monitor/io  # io/: strict
+	$(VENV)/bin/mypy --strict --follow-imports=silent kinematic_monitor/core kinematic_monitor/io  # core/ and io/: strict
 
 test: $(STAMP) lint typecheck
 	@$(PY) -c "from importlib.metadata import version as v; print('== all tests, rclpy', v('ros-rclpy'))"

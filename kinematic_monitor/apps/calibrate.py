@@ -3,8 +3,12 @@
 Thin adapter: reads the bags with :mod:`kinematic_monitor.io.bag`, runs
 :func:`kinematic_monitor.core.calibration.calibrate` and writes a parameter file in the node's
 schema (each calibrated value commented with its uncertainty and the data used) plus, with
-``--report``, a text report and a JSON file of all figures. Exit 2 (with a message naming
-the problem) for bad parameters, unreadable bags or too little usable driving.
+``--report``, a text report and a JSON file of all figures. Estimates that have no parameter
+yet (gyro bias and its drift, IMU yaw misalignment, per-wheel and front-axle wheel-speed
+scales) are reported with their standard errors and listed in the parameter file's header
+as comments; only declared parameters are written, so the node loads the file. Exit 2
+(with a message naming the problem) for bad parameters, unreadable bags or too little
+usable driving.
 
 The fleet sweep (:mod:`kinematic_monitor.apps.sweep`) reads a file named
 ``calibrated_params.yaml`` in the bag folder or the bag's output folder: pass that as
@@ -24,7 +28,8 @@ from typing import Any
 
 from kinematic_monitor.apps.cli import EXIT_OK, UsageError, make_parent_folders
 
-HELP = "estimate steering offset, wheel-speed scale and geometry from recorded drives"
+HELP = ("estimate steering offset, wheel-speed scales, geometry, understeer, gyro bias and IMU "
+        "yaw from recorded drives")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -72,10 +77,18 @@ def _stream(path: str, config: Any) -> Iterator[Any]:
                 yield s
 
 
-def _fmt(e: Any) -> str:
-    if e.unit == "rad":
-        return f"{e.value:+.6f} rad ({math.degrees(e.value):+.3f} deg)"
-    return f"{e.value:.6g} {e.unit}"
+#: units shown also in degrees: unit -> (factor from rad, unit text)
+_DEGREES = {"rad": (1.0, "deg"), "rad/s": (1.0, "deg/s"), "rad/s^2": (60.0, "deg/s per minute")}
+
+
+def _fmt(x: float, unit: str, digits: int, sign: str = "") -> str:
+    """``x`` in ``unit`` (none for '-') to ``digits`` significant digits, plus degrees for
+    angles and angular rates (at most 4 digits)."""
+    text = f"{x:{sign}.{digits}g}" + ("" if unit == "-" else f" {unit}")
+    if unit in _DEGREES:
+        factor, deg = _DEGREES[unit]
+        text += f" ({math.degrees(x) * factor:{sign}.{min(digits, 4)}g} {deg})"
+    return text
 
 
 def _unc(e: Any) -> str:
@@ -85,9 +98,23 @@ def _unc(e: Any) -> str:
     return f"+-{u:.2g} {e.unit}"
 
 
+def report_only_lines(result: Any, wheel_radius: float) -> list[str]:
+    """One line per observable report-only estimate: value, derived units, 1 sigma."""
+    lines = []
+    for e in result.report_only():
+        if not e.observable:
+            continue
+        value, sigma = _fmt(e.value, e.unit, 6, "+"), _fmt(e.uncertainty, e.unit, 2)
+        text = f"{e.name:30s} {value} +-{sigma}"
+        if e.name.endswith("wheel_speed_scale") and math.isfinite(wheel_radius):
+            text += f"; effective radius {wheel_radius * e.value:.5f} m"
+        lines.append("  " + text)
+    return lines
+
+
 def comments(result: Any, written: dict[str, Any]) -> dict[str, str]:
     """Per-parameter notes for the YAML: uncertainty and data used, or why not fitted."""
-    from kinematic_monitor.core.calibration import estimate as cal
+    from kinematic_monitor.core import calibration as cal
 
     notes: dict[str, str] = {}
     data = (f"{result.usable_seconds:.0f} s usable driving in {result.n_segments} segments")
@@ -117,15 +144,19 @@ def comments(result: Any, written: dict[str, Any]) -> dict[str, str]:
     return notes
 
 
-def report_text(result: Any, sources: list[str]) -> str:
-    """Plain-text report: estimates, residuals before/after, data used and rejected."""
-    from kinematic_monitor.core.calibration import estimate as cal
+def report_text(result: Any, sources: list[str], wheel_radius: float = math.nan) -> str:
+    """Plain-text report: estimates, residuals before/after, data used and rejected.
+
+    ``wheel_radius`` [m] (``vehicle.wheel_radius``) turns wheel-speed scales into radii.
+    """
+    from kinematic_monitor.core import calibration as cal
 
     lines = ["kinematic-monitor calibration report", "", "data: " + ", ".join(sources),
              f"  {result.total_seconds:.0f} s of localisation, {result.usable_seconds:.0f} s "
              f"usable (gentle, steady), {result.k_usable_seconds:.0f} s for the understeer fit,"
              f" {result.n_segments} segments; yaw rate from {result.yaw_rate_source}; "
-             f"steering input: {result.steering_input.replace('_', '-')} angle", "",
+             f"steering input: {result.steering_input.replace('_', '-')} angle",
+             f"  {result.imu_seconds:.0f} s of IMU with localisation for the IMU estimates", "",
              "rejected (first failing rule) [s]:"]
     for k, s in sorted(result.rejected_seconds.items(), key=lambda kv: -kv[1]):
         lines.append(f"  {k:40s} {s:8.1f}")
@@ -141,6 +172,10 @@ def report_text(result: Any, sources: list[str]) -> str:
     if k is not None and math.isfinite(k.fitted):
         lines.append(f"  understeer gradient = {cal.per_g_degrees(k.fitted):.2f} deg/g "
                      "(delta = L/R + K a_y, Gillespie 1992 ch. 6; ISO 4138 steady state)")
+    extra = report_only_lines(result, wheel_radius)
+    if extra:
+        lines += ["", "report-only estimates (no parameter yet; the monitor does not apply "
+                  "them):", *extra]
     lines += ["", "residuals over the usable samples (mean / rms):"]
     for r in result.residuals:
         lines.append(f"  {r.name:40s} before {r.mean_before:+.4f} / {r.rms_before:.4f}  "
@@ -167,10 +202,12 @@ def result_json(result: Any) -> dict[str, Any]:
         "rejected_seconds": result.rejected_seconds,
         "steering_input": result.steering_input,
         "yaw_rate_source": result.yaw_rate_source,
+        "imu_seconds": result.imu_seconds,
         "estimates": {e.name: {"unit": e.unit, "input": num(e.prior), "value": num(e.value),
                                "fitted": num(e.fitted), "se_fit": num(e.se_fit),
                                "se_bootstrap": num(e.se_boot), "observable": e.observable,
-                               "reason": e.reason} for e in result.estimates.values()},
+                               "reason": e.reason, "parameter": e.is_parameter}
+                      for e in result.estimates.values()},
         "residuals": [vars(r) for r in result.residuals],
         "notes": result.notes,
     }
@@ -179,7 +216,7 @@ def result_json(result: Any) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     """Run ``calibrate``; returns the exit code (UsageError -> 2 via the CLI)."""
     from kinematic_monitor.config import files, schema, validation
-    from kinematic_monitor.core.calibration import estimate as cal
+    from kinematic_monitor.core import calibration as cal
     from kinematic_monitor.io.bag import BagError
 
     out = Path(args.out)
@@ -218,10 +255,15 @@ def run(args: argparse.Namespace) -> int:
         f"# input parameters: {args.params}; {result.usable_seconds:.0f} s usable of "
         f"{result.total_seconds:.0f} s; uncertainties are 1 sigma",
     ]
+    wheel_radius = config.vehicle.wheel_radius
+    only = report_only_lines(result, wheel_radius)
+    if only:
+        header += ["# report only (no parameter yet, not applied by the monitor):",
+                   *("#" + line for line in only)]
     body = files.dumps_params_yaml(new_values, notes)
     make_parent_folders(out, "--out")
     out.write_text("\n".join(header) + "\n" + body, encoding="utf-8")
-    text = report_text(result, list(args.bags))
+    text = report_text(result, list(args.bags), wheel_radius)
     if args.report:
         rep = Path(args.report)
         try:

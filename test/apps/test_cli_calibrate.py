@@ -29,6 +29,9 @@ def _run(argv: list[str]) -> int:
     return calcmd.run(parser.parse_args(argv))
 
 
+GYRO_BIAS = 0.004  # [rad/s] 0.23 deg/s, the simulator's ImuConfig.gyro_bias
+
+
 def _simulate(out: Path, duration: float, faults: list[object], seed: int = 1) -> Path:
     from kinematic_monitor.sim.bagout import write_simulation
     from kinematic_monitor.sim.scenarios import SCENARIOS, simulate
@@ -37,6 +40,7 @@ def _simulate(out: Path, duration: float, faults: list[object], seed: int = 1) -
     cfg = SensorConfig()
     cfg.gnss.rate_hz = 0.0
     cfg.imu.rate_hz = 50.0  # fewer messages: the calibration uses the localisation twist
+    cfg.imu.gyro_bias = GYRO_BIAS
     trace = simulate(SCENARIOS["mixed_loop"](v_max=15.0, a_lat=2.0), duration=duration,
                      seed=seed)
     write_simulation(out, trace, seed=seed, config=cfg, faults=faults)  # type: ignore[arg-type]
@@ -84,6 +88,34 @@ def test_out_in_missing_folders_creates_them(gentle_bag: Path, tmp_path: Path) -
     assert _run([str(gentle_bag), "--params", str(gentle_bag / "params.yaml"), "--out",
                  str(out)]) == 0
     files.load_config(out)  # written and valid
+
+
+def test_report_only_estimates_reported_not_written(gentle_bag: Path, tmp_path: Path) -> None:
+    out = tmp_path / "new.yaml"
+    rep = tmp_path / "rep"
+    _run([str(gentle_bag), "--params", str(gentle_bag / "params.yaml"), "--out", str(out),
+          "--report", str(rep)])
+    figures = json.loads((rep / "calibration.json").read_text())
+    gyro = figures["estimates"]["imu_gyro_bias"]
+    assert gyro["parameter"] is False and gyro["unit"] == "rad/s" and gyro["observable"]
+    sigma = max(gyro["se_fit"], gyro["se_bootstrap"])
+    assert abs(gyro["value"] - GYRO_BIAS) < 4 * sigma
+    for name in ("imu_gyro_bias_drift", "imu_yaw_misalignment", "rear_left_wheel_speed_scale",
+                 "rear_right_wheel_speed_scale"):
+        e = figures["estimates"][name]
+        assert e["parameter"] is False and e["se_fit"] is not None, name
+    assert figures["estimates"]["vehicle.steering_offset"]["parameter"] is True
+    report = (rep / "calibration_report.txt").read_text()
+    assert "report-only estimates (no parameter yet" in report
+    line = next(ln for ln in report.splitlines() if ln.startswith("  imu_gyro_bias "))
+    assert "deg/s" in line and "+-" in line
+    # the parameter file keeps only declared parameters (the node loads it); report-only
+    # estimates are comments in its header
+    text = out.read_text()
+    files.load_config(out)
+    doc = yaml.safe_load(text)["kinematic_monitor"]["ros__parameters"]
+    assert "imu_gyro_bias" not in json.dumps(doc)
+    assert "#  imu_gyro_bias" in text and "# report only (no parameter yet" in text
 
 
 def test_short_drive_is_refused_with_reason(tmp_path: Path) -> None:

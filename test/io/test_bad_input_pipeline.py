@@ -1,4 +1,4 @@
-"""Bad-input matrix on the core: converters -> reorder buffer -> Monitor, no DDS.
+"""Bad-input matrix on the data path: converters -> reorder buffer -> Monitor, no DDS.
 
 The pipeline here is the node's data path without rclpy's transport: message objects
 (rclpy message classes, as the node receives them) go through ``convert`` (counted
