@@ -584,42 +584,30 @@ def _joseph_pose_b(p: tuple[float, ...], k: tuple[float, ...], ha: float, hb: fl
 
 def _joseph_pose(p: tuple[float, ...], k: tuple[float, ...], ha: float, hb: float,
                  r: tuple[float, ...]) -> tuple[float, ...]:
-    """P' = B + D K^T with D = K R - B H^T [Joseph]: the updated covariance (15 entries)."""
-    (b00, b01, b02, b03, b04, b10, b11, b12, b13, b14, b20, b21, b22, b23, b24,
-     b30, b31, b32, b33, b34, b40, b41, b42, b44) = _joseph_pose_b(p, k, ha, hb)
-    k00, k01, k02, k10, k11, k12, k20, k21, k22, k30, k31, k32, k40, k41, k42 = k
+    """P' = B + D K^T with D = K R - B H^T [Joseph]: the updated covariance (15 entries).
+
+    Row i of D is (K_i R[:, 0] - B_i0 - B_i2 ha, K_i R[:, 1] - B_i1 - B_i2 hb,
+    K_i R[:, 2] - B_i2); P'_ij = B_ij + D_i . K_j for j >= i (the same sums, in the same
+    order, as written out entry by entry).
+    """
+    b = _joseph_pose_b(p, k, ha, hb)
+    # the rows of B (row 4 lacks B_43, never used: only j >= i is formed)
+    rows = (b[0:5], b[5:10], b[10:15], b[15:20], (b[20], b[21], b[22], math.nan, b[23]))
     r00, r01, r02, r11, r12, r22 = r
-    d00 = k00 * r00 + k01 * r01 + k02 * r02 - b00 - b02 * ha
-    d01 = k00 * r01 + k01 * r11 + k02 * r12 - b01 - b02 * hb
-    d02 = k00 * r02 + k01 * r12 + k02 * r22 - b02
-    d10 = k10 * r00 + k11 * r01 + k12 * r02 - b10 - b12 * ha
-    d11 = k10 * r01 + k11 * r11 + k12 * r12 - b11 - b12 * hb
-    d12 = k10 * r02 + k11 * r12 + k12 * r22 - b12
-    d20 = k20 * r00 + k21 * r01 + k22 * r02 - b20 - b22 * ha
-    d21 = k20 * r01 + k21 * r11 + k22 * r12 - b21 - b22 * hb
-    d22 = k20 * r02 + k21 * r12 + k22 * r22 - b22
-    d30 = k30 * r00 + k31 * r01 + k32 * r02 - b30 - b32 * ha
-    d31 = k30 * r01 + k31 * r11 + k32 * r12 - b31 - b32 * hb
-    d32 = k30 * r02 + k31 * r12 + k32 * r22 - b32
-    d40 = k40 * r00 + k41 * r01 + k42 * r02 - b40 - b42 * ha
-    d41 = k40 * r01 + k41 * r11 + k42 * r12 - b41 - b42 * hb
-    d42 = k40 * r02 + k41 * r12 + k42 * r22 - b42
-    n00 = b00 + d00 * k00 + d01 * k01 + d02 * k02
-    n01 = b01 + d00 * k10 + d01 * k11 + d02 * k12
-    n02 = b02 + d00 * k20 + d01 * k21 + d02 * k22
-    n03 = b03 + d00 * k30 + d01 * k31 + d02 * k32
-    n04 = b04 + d00 * k40 + d01 * k41 + d02 * k42
-    n11 = b11 + d10 * k10 + d11 * k11 + d12 * k12
-    n12 = b12 + d10 * k20 + d11 * k21 + d12 * k22
-    n13 = b13 + d10 * k30 + d11 * k31 + d12 * k32
-    n14 = b14 + d10 * k40 + d11 * k41 + d12 * k42
-    n22 = b22 + d20 * k20 + d21 * k21 + d22 * k22
-    n23 = b23 + d20 * k30 + d21 * k31 + d22 * k32
-    n24 = b24 + d20 * k40 + d21 * k41 + d22 * k42
-    n33 = b33 + d30 * k30 + d31 * k31 + d32 * k32
-    n34 = b34 + d30 * k40 + d31 * k41 + d32 * k42
-    n44 = b44 + d40 * k40 + d41 * k41 + d42 * k42
-    return (n00, n01, n02, n03, n04, n11, n12, n13, n14, n22, n23, n24, n33, n34, n44)
+    d: list[tuple[float, float, float]] = []
+    for i in range(5):
+        ka, kb, kc = k[3 * i], k[3 * i + 1], k[3 * i + 2]
+        bi0, bi1, bi2 = rows[i][0], rows[i][1], rows[i][2]
+        d.append((ka * r00 + kb * r01 + kc * r02 - bi0 - bi2 * ha,
+                  ka * r01 + kb * r11 + kc * r12 - bi1 - bi2 * hb,
+                  ka * r02 + kb * r12 + kc * r22 - bi2))
+    out: list[float] = []
+    for i in range(5):
+        da, db, dc = d[i]
+        row = rows[i]
+        for j in range(i, 5):
+            out.append(row[j] + da * k[3 * j] + db * k[3 * j + 1] + dc * k[3 * j + 2])
+    return tuple(out)
 
 
 def _propagate(p: tuple[float, ...], fa: float, fb: float, fc: float, fd: float, fe: float,
