@@ -21,6 +21,7 @@ CORE_MODULES = [
     "kinematic_monitor.core.events",
     "kinematic_monitor.core.ordering",
     "kinematic_monitor.core.monitor",
+    "kinematic_monitor.core.calibration",
     "kinematic_monitor.io.convert",
     "kinematic_monitor.io.cdr",
     "kinematic_monitor.io.bag",
